@@ -1,0 +1,7 @@
+"""Command line: ``spikegauge COMMAND``. Each command lives in its own module."""
+from .main import cli
+from . import check, simulate  # noqa: F401  (each import registers its command)
+
+
+def main():
+    cli()

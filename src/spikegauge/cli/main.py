@@ -1,0 +1,38 @@
+"""The click group and the central error handling of the command line."""
+from __future__ import annotations
+
+import sys
+
+import click
+
+from ..errors import ComputationError, InputError
+
+
+class _Group(click.Group):
+    """A click group that turns our errors into one line and an exit status.
+
+    Input errors exit with 2 (like click's own usage errors), failed
+    computations with 1. ``--debug`` lets the traceback through.
+    """
+
+    def invoke(self, ctx):
+        debug = ctx.params.get("debug", False) or "--debug" in sys.argv
+        try:
+            return super().invoke(ctx)
+        except InputError as exc:
+            if debug:
+                raise
+            click.echo(f"error: {exc}", err=True)
+            ctx.exit(2)
+        except ComputationError as exc:
+            if debug:
+                raise
+            click.echo(f"failed: {exc}", err=True)
+            ctx.exit(1)
+
+
+@click.group(cls=_Group)
+@click.option("--debug", is_flag=True, help="Show full tracebacks.")
+@click.version_option(package_name="spikegauge")
+def cli(debug):
+    """Measure the spike-timing error and cost of integration settings for a network of point neurons."""

@@ -1,0 +1,388 @@
+"""The window loop every strategy shares.
+
+All drivers advance in windows no longer than the smallest delay: once every
+cell has reached ``t0``, every arrival before ``t0 + d_min`` is known, and inside
+a window each cell is independent. This module owns what is common to all
+strategies:
+
+* :class:`CellState`: per-cell state, parameters, refractory end, divergence.
+* :class:`ArrivalQueue`: spikes emitted so far, turned into arrivals by
+  walking the CSR connectivity; handed out window by window.
+* :func:`run_windows`: gathers each window's arrivals (network + drive), sorts
+  them per cell in the fixed order (time, source, synapse), calls the
+  strategy's window kernel, collects spikes in cell order and schedules them.
+
+A strategy supplies a *window kernel*: an object with
+
+``boundaries(t_stop_ms) -> ndarray``
+    window edges, first 0, last ``t_stop_ms``; none longer than ``d_min``.
+``effective_time(time_ms) -> ndarray``
+    the time at which an arrival acts (identity, or the next grid point).
+``advance(state, t0, t1, arrivals, spikes, counters)``
+    integrate every cell from ``t0`` to ``t1``.
+
+Determinism: kernels write only to their own cell's rows; every reduction
+here runs in cell order, so the thread count never changes a bit.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..models import model_by_code, state_bounds, state_scales
+from ..network.drive import DriveStream
+
+# Columns of the per-cell cost counters.
+C_STEPS = 0          # accepted steps (fixed: every (sub)step)
+C_RHS = 1            # right-hand-side evaluations
+C_NEWTON = 2         # Newton iterations (implicit steppers)
+C_ARRIVALS = 3       # arrivals applied (synaptic and current events)
+C_REJECTED = 4       # rejected steps (adaptive)
+N_COUNTERS = 5
+COUNTER_NAMES = ("steps", "rhs_evals", "newton_iters", "arrivals", "rejected_steps")
+
+# Divergence codes (``CellState.div_code``).
+DIV_NONE = 0
+DIV_BOUNDS = 1       # non-finite state or a state outside its model's bounds
+DIV_NEWTON = 2       # Newton iteration of an implicit stepper failed
+DIV_MIN_STEP = 3     # adaptive step fell below the minimum step
+DIV_MAX_STEPS = 4    # adaptive step count exceeded the maximum
+DIV_MESSAGES = {
+    DIV_BOUNDS: "a state turned non-finite or left its model's bounds",
+    DIV_NEWTON: "the Newton iteration of the implicit stepper failed",
+    DIV_MIN_STEP: "the step size fell below the minimum step",
+    DIV_MAX_STEPS: "the maximum number of steps was exceeded",
+}
+
+MAX_WINDOW_MS = 100.0
+"""Window length used when the network has no synapses (no delay bounds it)."""
+
+
+@dataclass
+class CellState:
+    """Mutable per-cell integration state.
+
+    Attributes
+    ----------
+    code : ndarray of int64, shape (n_cells,)
+        Model code of each cell.
+    y : ndarray of float64, shape (n_cells, max_states)
+    p : ndarray of float64, shape (n_cells, max_params)
+        Parameters; ``p[:, P_IEXT]`` changes with current-step drive.
+    refractory_until : ndarray of float64, shape (n_cells,)
+        Time (ms) at which the voltage clamp ends; -inf when not refractory.
+    div_time : ndarray of float64, shape (n_cells,)
+        Time (ms) at which the cell diverged; inf while it has not.
+    div_code : ndarray of int64, shape (n_cells,)
+    lower, upper, scale : ndarray of float64, shape (n_cells, max_states)
+        Divergence bounds and typical magnitude of each state of each cell.
+    n_states : ndarray of int64, shape (n_cells,)
+    """
+
+    code: np.ndarray
+    y: np.ndarray
+    p: np.ndarray
+    refractory_until: np.ndarray
+    div_time: np.ndarray
+    div_code: np.ndarray
+    lower: np.ndarray
+    upper: np.ndarray
+    scale: np.ndarray
+    n_states: np.ndarray
+    extra: dict = field(default_factory=dict)
+
+    @classmethod
+    def initial(cls, network, scale_override=None) -> "CellState":
+        n = network.n_cells
+        lower_t, upper_t = state_bounds()
+        scale_t = state_scales() if scale_override is None else scale_override
+        code = np.ascontiguousarray(network.cell_model, dtype=np.int64)
+        y = np.array(network.y0, dtype=np.float64, order="C")
+        y[np.isnan(y)] = 0.0  # padding past a model's own states
+        return cls(
+            code=code,
+            y=y,
+            p=np.array(network.params, dtype=np.float64, order="C"),
+            refractory_until=np.full(n, -np.inf),
+            div_time=np.full(n, np.inf),
+            div_code=np.zeros(n, dtype=np.int64),
+            lower=np.ascontiguousarray(lower_t[code]),
+            upper=np.ascontiguousarray(upper_t[code]),
+            scale=np.ascontiguousarray(scale_t[code]),
+            n_states=np.ascontiguousarray(network.n_states, dtype=np.int64),
+        )
+
+    def snapshot(self):
+        return (self.y.copy(), self.p.copy(), self.refractory_until.copy(),
+                self.div_time.copy(), self.div_code.copy(),
+                {k: v.copy() for k, v in self.extra.items()})
+
+    def restore(self, snap):
+        y, p, r, dt, dc, extra = snap
+        self.y[:] = y
+        self.p[:] = p
+        self.refractory_until[:] = r
+        self.div_time[:] = dt
+        self.div_code[:] = dc
+        for k, v in extra.items():
+            self.extra[k][...] = v
+
+
+@dataclass
+class WindowArrivals:
+    """Arrivals of one window, grouped per cell and sorted by (time, source, synapse).
+
+    Arrivals of cell ``i`` are ``ptr[i]:ptr[i+1]``. ``time_ms`` is the effective
+    time at which each acts (grid delivery: the grid point).
+    """
+
+    ptr: np.ndarray       # int64 (n_cells + 1,)
+    time_ms: np.ndarray   # float64
+    receptor: np.ndarray  # int64
+    weight: np.ndarray    # float64
+
+
+@dataclass
+class SpikeBuffer:
+    """Per-cell spike slots for one window; ``count[i] > capacity`` flags overflow."""
+
+    count: np.ndarray     # int64 (n_cells,)
+    time_ms: np.ndarray   # float64 (n_cells, capacity)
+
+    @classmethod
+    def empty(cls, n_cells: int, capacity: int) -> "SpikeBuffer":
+        return cls(np.zeros(n_cells, dtype=np.int64), np.empty((n_cells, capacity)))
+
+    @property
+    def capacity(self) -> int:
+        return self.time_ms.shape[1]
+
+    def overflowed(self) -> bool:
+        return bool(np.any(self.count > self.capacity))
+
+    def collect(self) -> tuple[np.ndarray, np.ndarray]:
+        """Spikes as (cell, time) arrays in cell order, time order within a cell."""
+        counts = self.count
+        cells = np.repeat(np.arange(counts.size, dtype=np.int64), counts)
+        mask = np.arange(self.capacity)[None, :] < counts[:, None]
+        return cells, self.time_ms[mask]
+
+
+def expand_csr(sources: np.ndarray, ptr: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Synapse indices of every spike's source, and the spike each belongs to.
+
+    Returns ``(syn, owner)`` where ``syn`` lists ``ptr[s]:ptr[s+1]`` for each
+    ``s`` in ``sources`` in order, and ``owner[k]`` is the position in
+    ``sources`` of the spike that synapse ``syn[k]`` came from.
+    """
+    starts = ptr[sources]
+    lengths = ptr[sources + 1] - starts
+    total = int(lengths.sum())
+    owner = np.repeat(np.arange(sources.size, dtype=np.int64), lengths)
+    offsets = np.arange(total, dtype=np.int64) - np.repeat(np.cumsum(lengths) - lengths, lengths)
+    return starts[owner] + offsets, owner
+
+
+class ArrivalQueue:
+    """Arrivals scheduled by emitted spikes, not yet handed to a window.
+
+    Each window's spikes become one chunk of arrivals (time, target, receptor,
+    weight, source, synapse). Chunks are kept until every arrival in them was
+    handed out, so the queue holds at most (max delay / window) chunks.
+    """
+
+    def __init__(self, network, effective_time):
+        self._net = network
+        self._effective_time = effective_time
+        self._chunks: list[dict] = []
+
+    def push(self, cells: np.ndarray, times: np.ndarray) -> None:
+        net = self._net
+        if cells.size == 0 or net.n_synapses == 0:
+            return
+        syn, owner = expand_csr(cells, net.syn_ptr)
+        if syn.size == 0:
+            return
+        t_real = times[owner] + net.syn_delay_ms[syn]
+        self._chunks.append(dict(
+            time=t_real,
+            eff=self._effective_time(t_real),
+            cell=net.syn_target[syn],
+            receptor=net.syn_receptor[syn],
+            weight=net.syn_weight[syn],
+            source=cells[owner],
+            syn=syn,
+        ))
+
+    def pop(self, t1: float) -> dict:
+        """Every queued arrival whose effective time is before ``t1``."""
+        taken, kept = [], []
+        for ch in self._chunks:
+            m = ch["eff"] < t1
+            if m.all():
+                taken.append(ch)
+            elif m.any():
+                taken.append({k: v[m] for k, v in ch.items()})
+                kept.append({k: v[~m] for k, v in ch.items()})
+            else:
+                kept.append(ch)
+        self._chunks = kept
+        return _concat(taken)
+
+    def __len__(self) -> int:
+        return sum(ch["time"].size for ch in self._chunks)
+
+
+_FIELDS = ("time", "eff", "cell", "receptor", "weight", "source", "syn")
+_DTYPES = (np.float64, np.float64, np.int64, np.int64, np.float64, np.int64, np.int64)
+
+
+def _concat(chunks: list[dict]) -> dict:
+    if not chunks:
+        return {k: np.empty(0, dtype=d) for k, d in zip(_FIELDS, _DTYPES)}
+    if len(chunks) == 1:
+        return chunks[0]
+    return {k: np.concatenate([c[k] for c in chunks]) for k in _FIELDS}
+
+
+class DriveFeed:
+    """Drive events by effective time: events that act after a window are carried over."""
+
+    def __init__(self, network, effective_time):
+        self._stream = DriveStream(network)
+        self._effective_time = effective_time
+        self._carry = _concat([])
+
+    def take(self, t0: float, t1: float) -> dict:
+        time, cell, receptor, weight, source = self._stream.take(t0, t1)
+        new = dict(time=time, eff=self._effective_time(time), cell=cell, receptor=receptor,
+                   weight=weight, source=source,
+                   syn=np.zeros(time.size, dtype=np.int64))
+        merged = _concat([self._carry, new])
+        m = merged["eff"] < t1
+        self._carry = {k: v[~m] for k, v in merged.items()}
+        return {k: v[m] for k, v in merged.items()}
+
+
+def window_arrivals(n_cells: int, parts: list[dict]) -> WindowArrivals:
+    """Merge arrival sets and sort them per cell by (time, source, synapse)."""
+    a = _concat([p for p in parts if p["time"].size])
+    order = np.lexsort((a["syn"], a["source"], a["time"], a["cell"]))
+    cell = a["cell"][order]
+    ptr = np.zeros(n_cells + 1, dtype=np.int64)
+    np.cumsum(np.bincount(cell, minlength=n_cells), out=ptr[1:])
+    return WindowArrivals(
+        ptr=ptr,
+        time_ms=np.ascontiguousarray(a["eff"][order]),
+        receptor=np.ascontiguousarray(a["receptor"][order]),
+        weight=np.ascontiguousarray(a["weight"][order]),
+    )
+
+
+@dataclass
+class WindowLoopResult:
+    """What :func:`run_windows` returns to ``simulate``."""
+
+    cell: np.ndarray
+    time_ms: np.ndarray
+    counters: dict
+    status: str
+    t_reached_ms: float
+    message: str = ""
+    wall_s: float = 0.0
+
+
+def default_boundaries(d_min_ms: float, t_stop_ms: float) -> np.ndarray:
+    """Window edges of length ``min(d_min, MAX_WINDOW_MS)``, ending exactly at ``t_stop_ms``."""
+    w = min(d_min_ms, MAX_WINDOW_MS, t_stop_ms)
+    n = max(1, math.ceil(t_stop_ms / w - 1e-12))
+    edges = np.arange(n + 1, dtype=np.float64) * w
+    edges[-1] = t_stop_ms
+    return edges
+
+
+def run_windows(network, kernel, t_stop_ms: float, state: CellState | None = None,
+                progress=None, spike_capacity: int = 8, on_window=None,
+                extra_edges=None) -> WindowLoopResult:
+    """Integrate ``network`` from 0 to ``t_stop_ms`` with a strategy's window kernel.
+
+    Parameters
+    ----------
+    network : Network
+    kernel : window kernel (see module docstring)
+    t_stop_ms : float
+    state : CellState, optional
+        Start state (default: the network's initial state).
+    progress : callable(t_ms) or None
+        Called after each window with the time reached.
+    spike_capacity : int
+        Initial spike slots per cell and window; doubled (and the window rerun) on overflow.
+    on_window : callable(t0, t1, state) or None
+        Called after each window (used for trace recording).
+    extra_edges : ndarray or None
+        Further window edges (sampling times); windows only get shorter.
+
+    Returns
+    -------
+    WindowLoopResult
+        Spikes in window order, cell order within a window; summed counters;
+        status ``"ok"`` or ``"diverged"``.
+    """
+    import time as _time
+
+    n = network.n_cells
+    state = CellState.initial(network) if state is None else state
+    edges = kernel.boundaries(t_stop_ms)
+    if extra_edges is not None:
+        extra = np.asarray(extra_edges, dtype=np.float64)
+        edges = np.unique(np.concatenate([edges, extra[(extra > 0) & (extra < edges[-1])]]))
+    queue = ArrivalQueue(network, kernel.effective_time)
+    drive = DriveFeed(network, kernel.effective_time)
+    counters = np.zeros((n, N_COUNTERS), dtype=np.int64)
+    out_cells, out_times = [], []
+    status, message, t_reached = "ok", "", float(edges[-1])
+    wall = 0.0
+    cap = spike_capacity
+    for k in range(edges.size - 1):
+        t0, t1 = float(edges[k]), float(edges[k + 1])
+        arrivals = window_arrivals(n, [queue.pop(t1), drive.take(t0, t1)])
+        snap = state.snapshot()
+        counters_before = counters.copy()
+        while True:
+            spikes = SpikeBuffer.empty(n, cap)
+            tic = _time.perf_counter()
+            kernel.advance(state, t0, t1, arrivals, spikes, counters)
+            wall += _time.perf_counter() - tic
+            if not spikes.overflowed():
+                break
+            cap = max(2 * cap, int(spikes.count.max()) + 1)
+            state.restore(snap)
+            counters[:] = counters_before
+        cells, times = spikes.collect()
+        if np.isfinite(state.div_time).any():
+            i = int(np.argmin(state.div_time))  # first cell in cell order at the earliest time
+            t_div = float(state.div_time[i])
+            keep = times <= t_div
+            out_cells.append(cells[keep])
+            out_times.append(times[keep])
+            status, t_reached = "diverged", t_div
+            message = (f"diverged at t = {t_div:.6g} ms (cell {i}: "
+                       f"{DIV_MESSAGES.get(int(state.div_code[i]), 'unknown')})")
+            break
+        out_cells.append(cells)
+        out_times.append(times)
+        queue.push(cells, times)
+        if on_window is not None:
+            on_window(t0, t1, state)
+        if progress is not None:
+            progress(t1)
+    cell = np.concatenate(out_cells) if out_cells else np.empty(0, dtype=np.int64)
+    time = np.concatenate(out_times) if out_times else np.empty(0)
+    totals = counters.sum(axis=0)
+    return WindowLoopResult(
+        cell=cell, time_ms=time,
+        counters={name: int(v) for name, v in zip(COUNTER_NAMES, totals)},
+        status=status, t_reached_ms=t_reached, message=message, wall_s=wall,
+    )

@@ -1,0 +1,273 @@
+"""Hodgkin-Huxley squid axon (Hodgkin & Huxley 1952) with conductance synapses.
+
+Hodgkin AL, Huxley AF (1952) A quantitative description of membrane current
+and its application to conduction and excitation in nerve. J Physiol
+117:500-544. Modern sign convention, rest near -65 mV; parameters and rate
+functions exactly as in ../shared/limit/SPEC.md (bench-hh).
+
+Equations (area units: mV, ms, uF/cm2, mS/cm2, uA/cm2)::
+
+    C dV/dt = I_ext - g_Na m^3 h (V - E_Na) - g_K n^4 (V - E_K) - g_L (V - E_L)
+              + g_exc (E_exc - V) + g_inh (E_inh - V)
+    dx/dt   = phi (alpha_x(V) (1 - x) - beta_x(V) x),   x in {m, h, n}
+    phi     = 3 ** ((T - 6.3) / 10)                     (Q10 = 3)
+    dg_exc/dt = -g_exc / tau_syn_exc,  dg_inh/dt = -g_inh / tau_syn_inh
+
+    alpha_m = 0.1 (V+40) / (1 - exp(-(V+40)/10))    beta_m = 4 exp(-(V+65)/18)
+    alpha_h = 0.07 exp(-(V+65)/20)                  beta_h = 1 / (1 + exp(-(V+35)/10))
+    alpha_n = 0.01 (V+55) / (1 - exp(-(V+55)/10))   beta_n = 0.125 exp(-(V+65)/80)
+
+The removable singularities are evaluated through ``efun(x) = x/(1 - e^-x)``
+with ``efun(x) = 1 + x/2`` for |x| < 1e-6 (SPEC.md).
+
+A spike is an upward crossing of ``v_detect_mv`` (default 0 mV). There is no
+reset and no refractory clamp: ``v_reset_mv`` is NaN and ``t_ref_ms`` 0, both
+fixed (listed in ``SPEC.extra["fixed_params"]``).
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .._numba import jit
+from .base import P_IEXT, P_TREF, P_VRESET, P_VTH, ModelSpec, ParamInfo
+
+CODE = 3
+
+P_C_M = 4
+P_G_NA = 5
+P_G_K = 6
+P_G_L = 7
+P_E_NA = 8
+P_E_K = 9
+P_E_L = 10
+P_TEMPERATURE = 11
+P_E_EXC = 12
+P_E_INH = 13
+P_TAU_SYN_EXC = 14
+P_TAU_SYN_INH = 15
+
+S_V = 0
+S_M = 1
+S_H = 2
+S_N = 3
+S_G_EXC = 4
+S_G_INH = 5
+
+T_BASE_C = 6.3
+"""Temperature of the published rate functions (deg C)."""
+Q10 = 3.0
+"""Temperature factor per 10 deg C (Hodgkin & Huxley 1952)."""
+
+# HH voltage never leaves [E_K, E_Na] by more than the synaptic reversals; 200 mV
+# away means the step is unstable.
+V_BOUND_MV = 200.0
+# Gates live in [0, 1]; an explicit stepper may overshoot slightly, half a unit
+# cannot be overshoot.
+GATE_LOWER = -0.5
+GATE_UPPER = 1.5
+# As for the LIF models: one typical magnitude below zero, 1e4 above it.
+NEG_SCALES_ALLOWED = 1.0
+SYN_UPPER_SCALES = 1.0e4
+
+# V: a spike spans ~100 mV; gates 1; conductances: bench-hh weights 0.015 and 0.1.
+_SCALE = np.array([100.0, 1.0, 1.0, 1.0, 0.1, 0.1])
+
+SPEC = ModelSpec(
+    name="hh-squid",
+    code=CODE,
+    unit_system="area",
+    state_names=("v_mv", "m", "h", "n", "g_exc_ms_per_cm2", "g_inh_ms_per_cm2"),
+    params=(
+        ParamInfo("i_bias_ua_per_cm2", P_IEXT, 0.0, "constant external current (uA/cm2); drives add to it"),
+        ParamInfo("v_detect_mv", P_VTH, 0.0, "spike detection voltage, upward crossing (mV); SPEC.md bench-hh"),
+        ParamInfo("v_reset_mv", P_VRESET, math.nan, "no reset: fixed at NaN"),
+        ParamInfo("t_ref_ms", P_TREF, 0.0, "no refractory clamp: fixed at 0"),
+        ParamInfo("c_m_uf_per_cm2", P_C_M, 1.0, "membrane capacitance (uF/cm2); Hodgkin & Huxley 1952"),
+        ParamInfo("g_na_ms_per_cm2", P_G_NA, 120.0, "sodium conductance (mS/cm2); Hodgkin & Huxley 1952"),
+        ParamInfo("g_k_ms_per_cm2", P_G_K, 36.0, "potassium conductance (mS/cm2); Hodgkin & Huxley 1952"),
+        ParamInfo("g_l_ms_per_cm2", P_G_L, 0.3, "leak conductance (mS/cm2); Hodgkin & Huxley 1952"),
+        ParamInfo("e_na_mv", P_E_NA, 50.0, "sodium reversal (mV); Hodgkin & Huxley 1952, modern convention"),
+        ParamInfo("e_k_mv", P_E_K, -77.0, "potassium reversal (mV); Hodgkin & Huxley 1952, modern convention"),
+        ParamInfo("e_l_mv", P_E_L, -54.387, "leak reversal (mV); Hodgkin & Huxley 1952, modern convention"),
+        ParamInfo("temperature_c", P_TEMPERATURE, T_BASE_C, "temperature (deg C); rates scale by 3**((T-6.3)/10)"),
+        ParamInfo("e_exc_mv", P_E_EXC, 0.0, "excitatory reversal (mV); SPEC.md bench-hh"),
+        ParamInfo("e_inh_mv", P_E_INH, -80.0, "inhibitory reversal (mV); SPEC.md bench-hh"),
+        ParamInfo("tau_syn_exc_ms", P_TAU_SYN_EXC, 2.0, "excitatory conductance decay (ms); SPEC.md bench-hh"),
+        ParamInfo("tau_syn_inh_ms", P_TAU_SYN_INH, 6.0, "inhibitory conductance decay (ms); SPEC.md bench-hh"),
+    ),
+    exc_state=S_G_EXC,
+    inh_state=S_G_INH,
+    weight_key="weight_ms_per_cm2",
+    current_key="i_ua_per_cm2",
+    scale=_SCALE,
+    has_physical_zero=np.array([False, True, True, True, True, True]),
+    lower=np.array([-V_BOUND_MV, GATE_LOWER, GATE_LOWER, GATE_LOWER,
+                    -NEG_SCALES_ALLOWED * _SCALE[4], -NEG_SCALES_ALLOWED * _SCALE[5]]),
+    upper=np.array([V_BOUND_MV, GATE_UPPER, GATE_UPPER, GATE_UPPER,
+                    SYN_UPPER_SCALES * _SCALE[4], SYN_UPPER_SCALES * _SCALE[5]]),
+    doc=__doc__,
+    extra={"rest_guess_slot": P_E_L, "fixed_params": ("v_reset_mv", "t_ref_ms")},
+)
+
+
+# ---------------------------------------------------------------- rate helpers
+# Shared with hh_interneuron (same functional forms, shifted).
+
+@jit
+def efun(x):
+    """x / (1 - exp(-x)), continuous through x = 0 (1 + x/2 for |x| < 1e-6)."""
+    if abs(x) < 1e-6:
+        return 1.0 + 0.5 * x
+    return x / (1.0 - math.exp(-x))
+
+
+@jit
+def defun(x):
+    """Derivative of :func:`efun`.
+
+    The closed form [1 - e^-x (1 + x)] / (1 - e^-x)^2 loses digits to
+    cancellation near 0 (relative error ~ 1e-16 / x^2), so |x| < 1e-3 uses the
+    Taylor series 1/2 + x/6 - x^3/180 (next term x^5/5040 < 1e-19 there).
+    """
+    if abs(x) < 1e-3:
+        return 0.5 + x / 6.0 - x * x * x / 180.0
+    e = math.exp(-x)
+    d = 1.0 - e
+    return (1.0 - e * (1.0 + x)) / (d * d)
+
+
+@jit
+def temperature_factor(temperature_c):
+    """phi = Q10 ** ((T - 6.3) / 10): multiplies every gating rate."""
+    return Q10 ** ((temperature_c - T_BASE_C) / 10.0)
+
+
+@jit
+def _rates(v):
+    """(alpha_m, beta_m, alpha_h, beta_h, alpha_n, beta_n) at 6.3 deg C, 1/ms."""
+    am = efun((v + 40.0) / 10.0)                 # = 0.1 (V+40) / (1 - e^{-(V+40)/10})
+    bm = 4.0 * math.exp(-(v + 65.0) / 18.0)
+    ah = 0.07 * math.exp(-(v + 65.0) / 20.0)
+    bh = 1.0 / (1.0 + math.exp(-(v + 35.0) / 10.0))
+    an = 0.1 * efun((v + 55.0) / 10.0)           # = 0.01 (V+55) / (1 - e^{-(V+55)/10})
+    bn = 0.125 * math.exp(-(v + 65.0) / 80.0)
+    return am, bm, ah, bh, an, bn
+
+
+@jit
+def _rate_derivatives(v, bm, ah, bh, bn):
+    """d/dV of the six rates, reusing the exponential rates already computed."""
+    dam = 0.1 * defun((v + 40.0) / 10.0)
+    dbm = -bm / 18.0
+    dah = -ah / 20.0
+    dbh = bh * (1.0 - bh) / 10.0                 # logistic: s' = s (1 - s) / 10
+    dan = 0.01 * defun((v + 55.0) / 10.0)
+    dbn = -bn / 80.0
+    return dam, dbm, dah, dbh, dan, dbn
+
+
+# --------------------------------------------------------------------- kernels
+
+@jit
+def rhs(y, p, clamped, dydt):
+    """Right-hand side of one cell; see the module docstring. Writes dydt[0:6]."""
+    v = y[S_V]
+    m = y[S_M]
+    h = y[S_H]
+    n = y[S_N]
+    g_e = y[S_G_EXC]
+    g_i = y[S_G_INH]
+    g_na = p[P_G_NA] * m * m * m * h
+    n2 = n * n
+    g_k = p[P_G_K] * n2 * n2
+    i_tot = (p[P_IEXT] - g_na * (v - p[P_E_NA]) - g_k * (v - p[P_E_K]) - p[P_G_L] * (v - p[P_E_L])
+             + g_e * (p[P_E_EXC] - v) + g_i * (p[P_E_INH] - v))
+    dydt[S_V] = 0.0 if clamped else i_tot / p[P_C_M]
+    phi = temperature_factor(p[P_TEMPERATURE])
+    am, bm, ah, bh, an, bn = _rates(v)
+    dydt[S_M] = phi * (am * (1.0 - m) - bm * m)
+    dydt[S_H] = phi * (ah * (1.0 - h) - bh * h)
+    dydt[S_N] = phi * (an * (1.0 - n) - bn * n)
+    dydt[S_G_EXC] = -g_e / p[P_TAU_SYN_EXC]
+    dydt[S_G_INH] = -g_i / p[P_TAU_SYN_INH]
+
+
+@jit
+def jac(y, p, clamped, J):
+    """Jacobian d rhs / d y of one cell; writes J[0:6, 0:6]."""
+    v = y[S_V]
+    m = y[S_M]
+    h = y[S_H]
+    n = y[S_N]
+    g_e = y[S_G_EXC]
+    g_i = y[S_G_INH]
+    on_c = (0.0 if clamped else 1.0) / p[P_C_M]
+    gna_bar = p[P_G_NA]
+    gk_bar = p[P_G_K]
+    m2 = m * m
+    n3 = n * n * n
+    J[0, 0] = -on_c * (gna_bar * m2 * m * h + gk_bar * n3 * n + p[P_G_L] + g_e + g_i)
+    J[0, 1] = -on_c * 3.0 * gna_bar * m2 * h * (v - p[P_E_NA])
+    J[0, 2] = -on_c * gna_bar * m2 * m * (v - p[P_E_NA])
+    J[0, 3] = -on_c * 4.0 * gk_bar * n3 * (v - p[P_E_K])
+    J[0, 4] = on_c * (p[P_E_EXC] - v)
+    J[0, 5] = on_c * (p[P_E_INH] - v)
+    phi = temperature_factor(p[P_TEMPERATURE])
+    am, bm, ah, bh, an, bn = _rates(v)
+    dam, dbm, dah, dbh, dan, dbn = _rate_derivatives(v, bm, ah, bh, bn)
+    for i in range(1, 6):
+        for k in range(1, 6):
+            J[i, k] = 0.0
+    J[1, 0] = phi * (dam * (1.0 - m) - dbm * m)
+    J[1, 1] = -phi * (am + bm)
+    J[2, 0] = phi * (dah * (1.0 - h) - dbh * h)
+    J[2, 2] = -phi * (ah + bh)
+    J[3, 0] = phi * (dan * (1.0 - n) - dbn * n)
+    J[3, 3] = -phi * (an + bn)
+    J[4, 0] = 0.0
+    J[5, 0] = 0.0
+    J[4, 4] = -1.0 / p[P_TAU_SYN_EXC]
+    J[5, 5] = -1.0 / p[P_TAU_SYN_INH]
+
+
+@jit
+def split(y, p, clamped, a, b):
+    """Quasi-linear split dy_i/dt = a_i + b_i y_i with b_i = d f_i / d y_i.
+
+    Gates take the Rush-Larsen form a = phi alpha, b = -phi (alpha + beta);
+    V takes b = -(total conductance)/C, a = the conductance-weighted
+    reversals plus I_ext over C.
+    """
+    v = y[S_V]
+    m = y[S_M]
+    h = y[S_H]
+    n = y[S_N]
+    g_e = y[S_G_EXC]
+    g_i = y[S_G_INH]
+    on_c = (0.0 if clamped else 1.0) / p[P_C_M]
+    g_na = p[P_G_NA] * m * m * m * h
+    n2 = n * n
+    g_k = p[P_G_K] * n2 * n2
+    g_l = p[P_G_L]
+    a[S_V] = on_c * (p[P_IEXT] + g_na * p[P_E_NA] + g_k * p[P_E_K] + g_l * p[P_E_L]
+                     + g_e * p[P_E_EXC] + g_i * p[P_E_INH])
+    b[S_V] = -on_c * (g_na + g_k + g_l + g_e + g_i)
+    phi = temperature_factor(p[P_TEMPERATURE])
+    am, bm, ah, bh, an, bn = _rates(v)
+    a[S_M] = phi * am
+    b[S_M] = -phi * (am + bm)
+    a[S_H] = phi * ah
+    b[S_H] = -phi * (ah + bh)
+    a[S_N] = phi * an
+    b[S_N] = -phi * (an + bn)
+    a[S_G_EXC] = 0.0
+    b[S_G_EXC] = -1.0 / p[P_TAU_SYN_EXC]
+    a[S_G_INH] = 0.0
+    b[S_G_INH] = -1.0 / p[P_TAU_SYN_INH]
+
+
+@jit
+def reset(y, p):
+    """No reset: a Hodgkin-Huxley cell repolarises by itself."""
