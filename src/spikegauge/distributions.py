@@ -15,7 +15,9 @@ A value in a scenario file is one of
 
 :func:`parse_value_spec` turns the raw TOML value into one of the frozen classes
 below and raises :class:`~spikegauge.errors.InputError` naming the key path;
-``sample(rng, n)`` draws ``n`` values from a :class:`numpy.random.Generator`.
+every class has ``sample(rng, n)``, which draws ``n`` values (float64) from a
+:class:`numpy.random.Generator`, and ``support()``, the smallest and largest
+value it can produce (used to check signs and bounds before anything is drawn).
 """
 from __future__ import annotations
 
@@ -47,9 +49,6 @@ class Constant:
         """Smallest and largest value that can be drawn."""
         return self.value, self.value
 
-    def expectation(self) -> float:
-        return self.value
-
 
 @dataclass(frozen=True)
 class Uniform:
@@ -63,9 +62,6 @@ class Uniform:
 
     def support(self) -> tuple[float, float]:
         return self.low, self.high
-
-    def expectation(self) -> float:
-        return 0.5 * (self.low + self.high)
 
 
 @dataclass(frozen=True)
@@ -96,11 +92,6 @@ class Normal:
             return self.mean, self.mean
         return self.low, self.high
 
-    def expectation(self) -> float:
-        if self.std == 0.0 or (math.isinf(self.low) and math.isinf(self.high)):
-            return self.mean
-        return float(self._frozen().mean())
-
 
 @dataclass(frozen=True)
 class LogNormal:
@@ -126,9 +117,6 @@ class LogNormal:
         # Strictly positive: the lower end 0 is never reached.
         return math.ulp(0.0), math.inf
 
-    def expectation(self) -> float:
-        return self.mean
-
 
 @dataclass(frozen=True)
 class FileValues:
@@ -144,21 +132,22 @@ class FileValues:
         return self.values.copy()
 
     def support(self) -> tuple[float, float]:
-        if self.values.size == 0:
-            return math.inf, -math.inf
         return float(self.values.min()), float(self.values.max())
-
-    def expectation(self) -> float:
-        return float(self.values.mean()) if self.values.size else math.nan
 
 
 ValueSpec = Constant | Uniform | Normal | LogNormal | FileValues
 
 
-def _number(raw, where: str) -> float:
+def type_name(x) -> str:
+    """The TOML name of a parsed value's type, for messages."""
+    return {bool: "boolean", int: "integer", float: "number", str: "string", dict: "table",
+            list: "array"}.get(type(x), type(x).__name__)
+
+
+def finite_number(raw, where: str) -> float:
     """A finite float from a TOML value, or an InputError naming ``where``."""
     if isinstance(raw, bool) or not isinstance(raw, (int, float)):
-        raise InputError(f"{where}: must be a number, got {type(raw).__name__} {raw!r}")
+        raise InputError(f"{where}: must be a number, got {type_name(raw)} {raw!r}")
     value = float(raw)
     if not math.isfinite(value):
         raise InputError(f"{where}: must be finite, got {value}")
@@ -245,7 +234,7 @@ def parse_value_spec(raw, where: str, base_dir: Path, n_values: int | None = Non
         unreadable file or wrong number of values in it.
     """
     if not isinstance(raw, dict):
-        return Constant(_number(raw, where))
+        return Constant(finite_number(raw, where))
     if "file" in raw:
         _allowed_keys(where, raw, ("file",), ("file",))
         if n_values is None:
@@ -268,17 +257,17 @@ def parse_value_spec(raw, where: str, base_dir: Path, n_values: int | None = Non
                          f"known: {', '.join(DISTRIBUTIONS)}")
     if kind == "uniform":
         _allowed_keys(where, raw, ("distribution", "low", "high"), ("low", "high"))
-        low, high = _number(raw["low"], f"{where}.low"), _number(raw["high"], f"{where}.high")
+        low, high = finite_number(raw["low"], f"{where}.low"), finite_number(raw["high"], f"{where}.high")
         if not low <= high:
             raise InputError(f"{where}: low must not exceed high, got low={low}, high={high}")
         return Uniform(low, high)
     if kind == "normal":
         _allowed_keys(where, raw, ("distribution", "mean", "std", "low", "high"), ("mean", "std"))
-        mean, std = _number(raw["mean"], f"{where}.mean"), _number(raw["std"], f"{where}.std")
+        mean, std = finite_number(raw["mean"], f"{where}.mean"), finite_number(raw["std"], f"{where}.std")
         if std < 0:
             raise InputError(f"{where}.std: must not be negative, got {std}")
-        low = _number(raw["low"], f"{where}.low") if "low" in raw else -math.inf
-        high = _number(raw["high"], f"{where}.high") if "high" in raw else math.inf
+        low = finite_number(raw["low"], f"{where}.low") if "low" in raw else -math.inf
+        high = finite_number(raw["high"], f"{where}.high") if "high" in raw else math.inf
         if not low < high:
             raise InputError(f"{where}: low must be below high, got low={low}, high={high}")
         if std == 0 and not low <= mean <= high:
@@ -288,7 +277,7 @@ def parse_value_spec(raw, where: str, base_dir: Path, n_values: int | None = Non
                              f"for std {std} (no probability inside)")
         return Normal(mean, std, low, high)
     _allowed_keys(where, raw, ("distribution", "mean", "std"), ("mean", "std"))
-    mean, std = _number(raw["mean"], f"{where}.mean"), _number(raw["std"], f"{where}.std")
+    mean, std = finite_number(raw["mean"], f"{where}.mean"), finite_number(raw["std"], f"{where}.std")
     if mean <= 0:
         raise InputError(f"{where}.mean: a lognormal mean must be positive, got {mean}")
     if std < 0:

@@ -28,7 +28,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .distributions import FileValues, ValueSpec, check_sign, parse_value_spec
+from .distributions import ValueSpec, check_sign, finite_number, parse_value_spec, type_name
 from .errors import InputError
 from .models import MODELS, max_params, max_states
 from .models.base import RECEPTOR_EXC, RECEPTOR_INH, ModelSpec
@@ -304,7 +304,7 @@ class _Parser:
     def keys(self, where: str, table, allowed, required=(), hint_for=None):
         """Check a table's keys: unknown ones (with a suggestion) and missing ones."""
         if not isinstance(table, dict):
-            raise self.err(where, f"must be a table, got {_type_name(table)}")
+            raise self.err(where, f"must be a table, got {type_name(table)}")
         for key in table:
             if key not in allowed:
                 extra = hint_for(key) if hint_for else None
@@ -319,11 +319,7 @@ class _Parser:
                 raise self.err(where, f"missing key '{key}'")
 
     def number(self, where: str, raw, *, positive=False, nonnegative=False) -> float:
-        if isinstance(raw, bool) or not isinstance(raw, (int, float)):
-            raise self.err(where, f"must be a number, got {_type_name(raw)} {raw!r}")
-        x = float(raw)
-        if not math.isfinite(x):
-            raise self.err(where, f"must be finite, got {x}")
+        x = finite_number(raw, f"{self.label}: {where}")
         if positive and not x > 0:
             raise self.err(where, f"must be positive, got {_fmt(x)}")
         if nonnegative and x < 0:
@@ -332,7 +328,7 @@ class _Parser:
 
     def integer(self, where: str, raw, *, positive=False, nonnegative=False) -> int:
         if isinstance(raw, bool) or not isinstance(raw, int):
-            raise self.err(where, f"must be an integer, got {_type_name(raw)} {raw!r}")
+            raise self.err(where, f"must be an integer, got {type_name(raw)} {raw!r}")
         if positive and raw <= 0:
             raise self.err(where, f"must be positive, got {raw}")
         if nonnegative and raw < 0:
@@ -341,7 +337,7 @@ class _Parser:
 
     def string(self, where: str, raw, choices=None) -> str:
         if not isinstance(raw, str):
-            raise self.err(where, f"must be a string, got {_type_name(raw)} {raw!r}")
+            raise self.err(where, f"must be a string, got {type_name(raw)} {raw!r}")
         if choices is not None and raw not in choices:
             close = difflib.get_close_matches(raw, list(choices), n=1)
             sugg = f" (did you mean '{close[0]}'?)" if close else ""
@@ -350,7 +346,7 @@ class _Parser:
 
     def boolean(self, where: str, raw) -> bool:
         if not isinstance(raw, bool):
-            raise self.err(where, f"must be true or false, got {_type_name(raw)} {raw!r}")
+            raise self.err(where, f"must be true or false, got {type_name(raw)} {raw!r}")
         return raw
 
     def value(self, where: str, raw, n_values=None, *, positive=False, nonnegative=False):
@@ -394,11 +390,36 @@ class _Parser:
                         pathways=pathways, drives=drives)
 
     def integration(self, t) -> Integration:
+        # The stepper names belong to the integrators; imported here only, so
+        # the rest of this module stays below the engine in the layering.
+        from .integrate.steppers import STEPPER_CODES
+        from .integrate.tableaux import ADAPTIVE_STEPPER_CODES
+
         w = "integration"
         self.keys(w, t, ("strategy", "stepper", "dt_ms", "crossing", "delivery", "rtol", "atol"))
+        strategy = self.string(f"{w}.strategy", t["strategy"], STRATEGIES) if "strategy" in t else None
+        stepper = None
+        if "stepper" in t:
+            fixed, adaptive = tuple(STEPPER_CODES), tuple(ADAPTIVE_STEPPER_CODES)
+            choices = {"fixed": fixed, "global-adaptive": adaptive, "local-adaptive": adaptive}.get(
+                strategy, fixed + adaptive)
+            stepper = self.string(f"{w}.stepper", t["stepper"], choices)
+        # Settings that belong to another strategy than the one the file names.
+        foreign = {"fixed": ("rtol", "atol"), "global-adaptive": ("dt_ms", "delivery"),
+                   "local-adaptive": ("dt_ms", "delivery"),
+                   "exact": ("stepper", "dt_ms", "crossing", "delivery", "rtol", "atol")}.get(strategy, ())
+        for key in foreign:
+            if key in t:
+                raise self.err(f"{w}.{key}", f"does not apply to strategy \"{strategy}\"")
+        if strategy in ("global-adaptive", "local-adaptive") and t.get("crossing", "dense") != "dense":
+            raise self.err(f"{w}.crossing", "adaptive strategies locate crossings on their dense output: "
+                                            "\"dense\" is the only choice")
+        if strategy == "fixed" and t.get("crossing") == "dense":
+            raise self.err(f"{w}.crossing", "\"dense\" is for adaptive strategies; the fixed strategy "
+                                            "takes step, linear or hermite")
         return Integration(
-            strategy=self.string(f"{w}.strategy", t["strategy"], STRATEGIES) if "strategy" in t else None,
-            stepper=self.string(f"{w}.stepper", t["stepper"]) if "stepper" in t else None,
+            strategy=strategy,
+            stepper=stepper,
             dt_ms=self.number(f"{w}.dt_ms", t["dt_ms"], positive=True) if "dt_ms" in t else None,
             crossing=self.string(f"{w}.crossing", t["crossing"], CROSSINGS) if "crossing" in t else None,
             delivery=self.string(f"{w}.delivery", t["delivery"], DELIVERIES) if "delivery" in t else None,
@@ -712,11 +733,6 @@ def _read_table(path: Path, where: str, required: tuple, optional: tuple) -> dic
         n = arr.size
         out[col] = arr
     return out
-
-
-def _type_name(x) -> str:
-    return {bool: "boolean", int: "integer", float: "number", str: "string", dict: "table",
-            list: "array"}.get(type(x), type(x).__name__)
 
 
 def _fmt(x: float) -> str:

@@ -36,3 +36,22 @@ class _Group(click.Group):
 @click.version_option(package_name="spikegauge")
 def cli(debug):
     """Measure the spike-timing error and cost of integration settings for a network of point neurons."""
+
+
+def progress_bar(length: int, label: str, quiet: bool):
+    """Click's progress bar on stderr, or a silent stand-in with ``--quiet``."""
+    if quiet:
+        return _SilentBar()
+    return click.progressbar(length=length, label=label, show_eta=True,
+                             file=click.get_text_stream("stderr"))
+
+
+class _SilentBar:
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        return False
+
+    def update(self, n_steps, current_item=None):
+        pass

@@ -5,7 +5,7 @@ import time
 
 import click
 
-from .main import cli
+from .main import cli, progress_bar
 
 
 @cli.command()
@@ -28,25 +28,25 @@ def simulate(scenario, strategy, stepper, dt_ms, crossing, delivery, rtol, atol,
              write_csv, out_dir, quiet):
     """Integrate SCENARIO once and write spikes.npz and run.json to --out."""
     from ..scenario import load_scenario
-    from ..simulation import simulate as run_simulation
+    from ..simulation import resolve_settings, simulate as run_simulation
 
     scen = load_scenario(scenario)
-    duration = float(scen.duration_ms)
+    options = dict(strategy=strategy, stepper=stepper, dt_ms=dt_ms, crossing=crossing,
+                   delivery=delivery, rtol=rtol, atol=atol)
+    resolve_settings(scen, **options)  # refuse bad options before any work
     started = time.perf_counter()
-    with click.progressbar(length=int(round(duration * 1000)), label="simulating", show_eta=True,
-                           file=None if not quiet else open("/dev/null", "w")) as bar:
+    with progress_bar(int(round(scen.duration_ms * 1000)), "simulating", quiet) as bar:
         done = [0]
 
         def progress(t_ms):
             if time.perf_counter() - started < 2.0:
-                return  # short runs get no bar updates
+                return  # runs shorter than a couple of seconds get no bar
             now = int(round(t_ms * 1000))
             bar.update(now - done[0])
             done[0] = now
 
-        run = run_simulation(scen, strategy=strategy, stepper=stepper, dt_ms=dt_ms, crossing=crossing,
-                             delivery=delivery, rtol=rtol, atol=atol, auto_scale=auto_scale,
-                             threads=threads, progress=progress)
+        run = run_simulation(scen, auto_scale=auto_scale, threads=threads, progress=progress,
+                             **options)
     out = run.save(out_dir)
     if write_csv:
         run.spikes.to_csv(out / "spikes.csv", index=False)

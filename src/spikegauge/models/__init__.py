@@ -16,12 +16,25 @@ code  name                 module
 
 The table functions return arrays indexed by model code, padded past each
 model's own states so that drivers can index them with ``cell_model``.
+
+Keys of ``spec.extra`` (for scenario validation and initial values):
+
+``rest_guess_slot``
+    parameter slot of the leak reversal, where :func:`rest_state` starts.
+``positive_params``
+    parameter keys that must be > 0 (the kernels divide by them).
+``nonnegative_params``
+    parameter keys that must be >= 0.
+``fixed_params``
+    parameter keys a scenario may not set (Hodgkin-Huxley models have no
+    reset and no refractory clamp: ``v_reset_mv`` stays NaN, ``t_ref_ms`` 0).
 """
 from __future__ import annotations
 
 import numpy as np
 import scipy.optimize
 
+from .._numba import jit
 from ..errors import ComputationError, InputError
 from . import adex, hh_interneuron, hh_squid, lif_conductance, lif_current
 from .base import ModelSpec
@@ -37,8 +50,6 @@ _BY_CODE: tuple[ModelSpec, ...] = (
 
 MODELS: dict[str, ModelSpec] = {spec.name: spec for spec in _BY_CODE}
 """Every model by its scenario name."""
-
-assert all(spec.code == i for i, spec in enumerate(_BY_CODE)), "model codes must be 0..n-1 in order"
 
 
 def get_model(name: str) -> ModelSpec:
@@ -137,23 +148,32 @@ def steady_state_at(spec: ModelSpec, params, v_mv) -> np.ndarray:
     v_all = np.asarray(v_mv, dtype=np.float64)
     if p_all.ndim != 2 or p_all.shape[1] < spec.n_params or v_all.shape != (p_all.shape[0],):
         raise ValueError(f"{spec.name}: need params (n_cells, >= {spec.n_params}) and v_mv (n_cells,)")
-    n = spec.n_states
-    out = np.zeros((v_all.size, n))
+    out = np.zeros((v_all.size, spec.n_states))
+    _steady_rows(spec.code, p_all, v_all, out)
+    return out
+
+
+@jit
+def _steady_rows(code, p_all, v_all, out):
+    """Kernel of :func:`steady_state_at`: one split per cell, out filled in place."""
+    n = out.shape[1]
     a = np.empty(n)
     b = np.empty(n)
     for c in range(v_all.size):
         out[c, 0] = v_all[c]
-        split(spec.code, out[c], p_all[c], False, a, b)
-        out[c, 1:] = -a[1:] / b[1:]
-    return out
+        split(code, out[c], p_all[c], False, a, b)
+        for i in range(1, n):
+            out[c, i] = -a[i] / b[i]
 
 
 def rest_state(spec: ModelSpec, params) -> np.ndarray:
     """Fixed point of one cell with these parameters and no synaptic input.
 
     The external current ``params[P_IEXT]`` is included as given: pass 0 there
-    for the true resting state. Starts from V = E_L with every other state at
-    its steady value for that V (from the quasi-linear split, -a_i/b_i), then
+    for the true resting state. With a current past the loss of stability of
+    rest (e.g. above 9.775 uA/cm2 for hh-squid, CHECKS.md) the fixed point
+    returned is unstable. Starts from V = E_L with every other state at its
+    steady value for that V (:func:`steady_state_at`), then
     solves f(y) = 0 with :func:`scipy.optimize.root` (hybrid Powell, with the
     model's Jacobian). For AdEx this start lies below the unstable fixed point
     near V_T, so the stable rest is found when it exists.
@@ -170,8 +190,8 @@ def rest_state(spec: ModelSpec, params) -> np.ndarray:
     Raises
     ------
     ComputationError
-        If the solver does not reach a fixed point (for example a LIF or AdEx
-        current so large that no fixed point exists).
+        If the solver does not reach a fixed point inside the model's bounds
+        (for example an AdEx current so large that no fixed point exists).
     """
     p = np.ascontiguousarray(params, dtype=np.float64)
     if p.ndim != 1 or p.size < spec.n_params:
@@ -192,7 +212,10 @@ def rest_state(spec: ModelSpec, params) -> np.ndarray:
     sol = scipy.optimize.root(fun, y0, jac=fjac, method="hybr", tol=1e-13)
     # Residual in units of each state's typical magnitude per ms.
     resid = np.max(np.abs(fun(sol.x)) / spec.scale) if np.all(np.isfinite(sol.x)) else np.inf
-    if not resid < 1e-9:
+    # Out of bounds is no answer either: with the AdEx exponent capped, a
+    # suprathreshold current has a spurious fixed point near 1e22 mV.
+    inside = np.all((sol.x >= spec.lower) & (sol.x <= spec.upper))
+    if not (resid < 1e-9 and inside):
         raise ComputationError(
             f"no resting state found for {spec.name} with these parameters "
             f"(scaled residual {resid:.3g}: {sol.message})"

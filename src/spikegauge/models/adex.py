@@ -101,7 +101,11 @@ SPEC = ModelSpec(
     lower=np.array([V_LOWER_MV, -W_BOUND_PA, -NEG_SCALES_ALLOWED * _SCALE[2], -NEG_SCALES_ALLOWED * _SCALE[3]]),
     upper=np.array([V_UPPER_MV, W_BOUND_PA, SYN_UPPER_SCALES * _SCALE[2], SYN_UPPER_SCALES * _SCALE[3]]),
     doc=__doc__,
-    extra={"rest_guess_slot": P_E_L},
+    extra={
+        "rest_guess_slot": P_E_L,
+        "positive_params": ("c_m_pf", "g_l_ns", "delta_t_mv", "tau_w_ms", "tau_syn_exc_ms", "tau_syn_inh_ms"),
+        "nonnegative_params": ("t_ref_ms",),
+    },
 )
 
 
@@ -157,24 +161,25 @@ def jac(y, p, clamped, J):
 
 @jit
 def split(y, p, clamped, a, b):
-    """Quasi-linear split dy_i/dt = a_i + b_i y_i with b_i = d f_i / d y_i.
+    """Quasi-linear split dy_i/dt = a_i + b_i y_i.
 
-    For V, b includes the derivative of the exponential spike term, so b turns
-    positive above the voltage where that term outgrows the conductances;
-    a = f_V - b V carries the rest. An exponential stepper then follows the
-    local linearisation of the upswing rather than freezing the exponential.
+    For V, b = -(g_L + g_exc + g_inh)/C, minus the total conductance, and a
+    carries everything else, the exponential spike current and -w included.
+    This b is *not* d f_V / dV (which adds g_L e^x / C): on the upswing that
+    derivative reaches ~1e20 /ms, and exp(b h) in an exponential stepper would
+    overflow to inf, turning an ordinary spike into a divergence. With the
+    spike current frozen over a step the update stays finite and the peak
+    crossing ends the spike. For w and the conductances b = d f_i / d y_i.
     """
     v = y[S_V]
     on_c = (0.0 if clamped else 1.0) / p[P_C_M]
     g_l = p[P_G_L]
     g_e = y[S_G_EXC]
     g_i = y[S_G_INH]
-    ex, below = _spike_term(v, p)
-    i_tot = (-g_l * (v - p[P_E_L]) + g_l * p[P_DELTA_T] * ex - y[S_W]
-             + g_e * (p[P_E_EXC] - v) + g_i * (p[P_E_INH] - v) + p[P_IEXT])
-    bv = on_c * (-g_l + g_l * ex * below - g_e - g_i)
-    b[S_V] = bv
-    a[S_V] = on_c * i_tot - bv * v
+    ex, _ = _spike_term(v, p)
+    a[S_V] = on_c * (g_l * p[P_E_L] + g_l * p[P_DELTA_T] * ex - y[S_W]
+                     + g_e * p[P_E_EXC] + g_i * p[P_E_INH] + p[P_IEXT])
+    b[S_V] = -on_c * (g_l + g_e + g_i)
     inv_tw = 1.0 / p[P_TAU_W]
     a[S_W] = p[P_A] * (v - p[P_E_L]) * inv_tw
     b[S_W] = -inv_tw

@@ -88,7 +88,12 @@ SPEC = ModelSpec(
     upper=np.array([V_BOUND_MV, GATE_UPPER, GATE_UPPER,
                     SYN_UPPER_SCALES * _SCALE[3], SYN_UPPER_SCALES * _SCALE[4]]),
     doc=__doc__,
-    extra={"rest_guess_slot": P_E_L, "fixed_params": ("v_reset_mv", "t_ref_ms")},
+    extra={
+        "rest_guess_slot": P_E_L,
+        "fixed_params": ("v_reset_mv", "t_ref_ms"),
+        "positive_params": ("c_m_uf_per_cm2", "phi", "tau_syn_exc_ms", "tau_syn_inh_ms"),
+        "nonnegative_params": ("g_na_ms_per_cm2", "g_k_ms_per_cm2", "g_l_ms_per_cm2"),
+    },
 )
 
 
@@ -138,15 +143,6 @@ def rhs(y, p, clamped, dydt):
 
 
 @jit
-def _dv_dv(v, h, n, g_e, g_i, p, minf, dminf):
-    """d(C dV/dt)/dV: minus the total conductance plus the m_inf(V) term."""
-    m2 = minf * minf
-    n2 = n * n
-    g_tot = p[P_G_NA] * m2 * minf * h + p[P_G_K] * n2 * n2 + p[P_G_L] + g_e + g_i
-    return -g_tot - 3.0 * p[P_G_NA] * m2 * dminf * h * (v - p[P_E_NA])
-
-
-@jit
 def jac(y, p, clamped, J):
     """Jacobian d rhs / d y of one cell; writes J[0:5, 0:5]."""
     v = y[S_V]
@@ -156,9 +152,13 @@ def jac(y, p, clamped, J):
     g_i = y[S_G_INH]
     on_c = (0.0 if clamped else 1.0) / p[P_C_M]
     minf, dminf = _m_inf(v)
-    J[0, 0] = on_c * _dv_dv(v, h, n, g_e, g_i, p, minf, dminf)
-    J[0, 1] = -on_c * p[P_G_NA] * minf * minf * minf * (v - p[P_E_NA])
-    J[0, 2] = -on_c * 4.0 * p[P_G_K] * n * n * n * (v - p[P_E_K])
+    m2 = minf * minf
+    n3 = n * n * n
+    g_tot = p[P_G_NA] * m2 * minf * h + p[P_G_K] * n3 * n + p[P_G_L] + g_e + g_i
+    # Minus the total conductance, plus the slope of the instantaneous m_inf(V).
+    J[0, 0] = -on_c * (g_tot + 3.0 * p[P_G_NA] * m2 * dminf * h * (v - p[P_E_NA]))
+    J[0, 1] = -on_c * p[P_G_NA] * m2 * minf * (v - p[P_E_NA])
+    J[0, 2] = -on_c * 4.0 * p[P_G_K] * n3 * (v - p[P_E_K])
     J[0, 3] = on_c * (p[P_E_EXC] - v)
     J[0, 4] = on_c * (p[P_E_INH] - v)
     for i in range(1, 5):
@@ -180,11 +180,15 @@ def jac(y, p, clamped, J):
 
 @jit
 def split(y, p, clamped, a, b):
-    """Quasi-linear split dy_i/dt = a_i + b_i y_i with b_i = d f_i / d y_i.
+    """Quasi-linear split dy_i/dt = a_i + b_i y_i.
 
-    Gates take the Rush-Larsen form. For V, b = d f_V / dV, which here is
-    minus the total conductance over C *plus* the term from the instantaneous
-    m_inf(V) (positive on the upswing); a = f_V - b V.
+    Gates take the Rush-Larsen form a = phi alpha, b = -phi (alpha + beta).
+    For V, b = -(total conductance)/C with g_Na m_inf(V)^3 h frozen at the
+    current V, and a = the conductance-weighted reversals plus I_ext over C:
+    the classic exponential-Euler split for conductance models. This b is not
+    d f_V / dV, which adds a term from m_inf(V) that is positive on the
+    upswing; with it exp(b h) would amplify the upswing and send a step at
+    dt ~ 0.5 ms far out of bounds instead of relaxing V towards E_Na.
     """
     v = y[S_V]
     h = y[S_H]
@@ -192,15 +196,14 @@ def split(y, p, clamped, a, b):
     g_e = y[S_G_EXC]
     g_i = y[S_G_INH]
     on_c = (0.0 if clamped else 1.0) / p[P_C_M]
-    minf, dminf = _m_inf(v)
+    minf, _ = _m_inf(v)
     g_na = p[P_G_NA] * minf * minf * minf * h
     n2 = n * n
     g_k = p[P_G_K] * n2 * n2
-    i_tot = (p[P_IEXT] - g_na * (v - p[P_E_NA]) - g_k * (v - p[P_E_K]) - p[P_G_L] * (v - p[P_E_L])
-             + g_e * (p[P_E_EXC] - v) + g_i * (p[P_E_INH] - v))
-    bv = on_c * _dv_dv(v, h, n, g_e, g_i, p, minf, dminf)
-    b[S_V] = bv
-    a[S_V] = on_c * i_tot - bv * v
+    g_l = p[P_G_L]
+    a[S_V] = on_c * (p[P_IEXT] + g_na * p[P_E_NA] + g_k * p[P_E_K] + g_l * p[P_E_L]
+                     + g_e * p[P_E_EXC] + g_i * p[P_E_INH])
+    b[S_V] = -on_c * (g_na + g_k + g_l + g_e + g_i)
     phi = p[P_PHI]
     ah, bh, an, bn = _hn_rates(v)
     a[S_H] = phi * ah

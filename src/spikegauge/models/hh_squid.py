@@ -108,7 +108,12 @@ SPEC = ModelSpec(
     upper=np.array([V_BOUND_MV, GATE_UPPER, GATE_UPPER, GATE_UPPER,
                     SYN_UPPER_SCALES * _SCALE[4], SYN_UPPER_SCALES * _SCALE[5]]),
     doc=__doc__,
-    extra={"rest_guess_slot": P_E_L, "fixed_params": ("v_reset_mv", "t_ref_ms")},
+    extra={
+        "rest_guess_slot": P_E_L,
+        "fixed_params": ("v_reset_mv", "t_ref_ms"),
+        "positive_params": ("c_m_uf_per_cm2", "tau_syn_exc_ms", "tau_syn_inh_ms"),
+        "nonnegative_params": ("g_na_ms_per_cm2", "g_k_ms_per_cm2", "g_l_ms_per_cm2"),
+    },
 )
 
 

@@ -89,7 +89,8 @@ def build_network(scenario: Scenario) -> Network:
         cell_model[rows] = spec.code
         n_states[rows] = spec.n_states
         params[rows, :spec.n_params] = _group_params(seed, gi, group)
-    # Bias drives change the constant current, and with it the resting state.
+    # Bias drives add to each cell's constant current (the default initial
+    # state is the resting state without any input, so it does not depend on them).
     for di, drive in enumerate(scenario.drives):
         if drive.kind == "bias":
             rows = slice(first[drive.target_index], first[drive.target_index + 1])
@@ -347,24 +348,24 @@ def _drives(scenario: Scenario, first: np.ndarray) -> tuple[tuple, DriveEvents]:
                 start_ms=float(d.start_ms), stop_ms=float(min(d.stop_ms, scenario.duration_ms))))
         elif d.kind == "step":
             amp = d.current.sample(stream(seed, STREAM_DRIVE, di), size)
-            edges = [(d.start_ms, amp)] + ([(d.stop_ms, -amp)] if d.stop_ms < scenario.duration_ms else [])
-            for t, w in edges:
+            for t, w in ((d.start_ms, amp), (d.stop_ms, -amp)):
                 times.append(np.full(size, t))
                 cells.append(ids)
                 wts.append(w)
                 recs.append(np.full(size, RECEPTOR_CURRENT, dtype=np.int64))
                 srcs.append(np.full(size, -(1 + di), dtype=np.int64))
         elif d.kind == "spikes":
-            keep = d.spikes.time_ms < scenario.duration_ms
-            n = int(keep.sum())
-            times.append(d.spikes.time_ms[keep])
-            cells.append(d.spikes.cell[keep] + lo)
+            n = d.spikes.time_ms.size
+            times.append(d.spikes.time_ms)
+            cells.append(d.spikes.cell + lo)
             wts.append(np.full(n, float(d.weight)))
             recs.append(np.full(n, RECEPTORS[d.receptor], dtype=np.int64))
             srcs.append(np.full(n, -(1 + di), dtype=np.int64))
     if times:
         t, c, r, w, s = (np.concatenate(x) for x in (times, cells, recs, wts, srcs))
+        # Events at or after the end of the run would never be delivered.
         order = np.lexsort((s, c, t))
+        order = order[t[order] < scenario.duration_ms]
         events = DriveEvents(t[order], c[order], r[order], w[order], s[order])
     else:
         events = DriveEvents(np.empty(0), np.empty(0, np.int64), np.empty(0, np.int64),

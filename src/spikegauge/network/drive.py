@@ -70,11 +70,6 @@ class DriveStream:
         self.network = network
         self._next_t0 = None
         self._blocks: dict[tuple[int, int], tuple[np.ndarray, np.ndarray]] = {}
-        ev = network.events
-        # Explicit events are already sorted by time; the builder records the
-        # drive each comes from (DriveEvents.source).
-        self._ev_time = ev.time_ms
-        self._ev_source = ev.source
 
     def take(self, t0_ms: float, t1_ms: float):
         """Drive events with ``t0_ms <= time < t1_ms``.
@@ -127,7 +122,8 @@ class DriveStream:
                 np.full(n, -(1 + d.drive_id), dtype=np.int64))
 
     def _explicit(self, t0: float, t1: float):
+        # Explicit events are sorted by time; the builder records the drive
+        # each comes from (DriveEvents.source).
         ev = self.network.events
-        i0, i1 = np.searchsorted(self._ev_time, [t0, t1], side="left")
-        return (ev.time_ms[i0:i1], ev.cell[i0:i1], ev.receptor[i0:i1], ev.weight[i0:i1],
-                self._ev_source[i0:i1])
+        i0, i1 = np.searchsorted(ev.time_ms, [t0, t1], side="left")
+        return (ev.time_ms[i0:i1], ev.cell[i0:i1], ev.receptor[i0:i1], ev.weight[i0:i1], ev.source[i0:i1])
