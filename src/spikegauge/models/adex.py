@@ -18,17 +18,25 @@ Overflow guard: the exponent (V - V_T)/Delta_T is capped at ``EXP_ARG_MAX``
 (= 50) before exp. Beyond the cap the spike current is the constant
 g_L Delta_T e^50, about 5e21 times the leak scale, so V runs from the cap to
 any peak in far less than any time step and the model is unchanged where it
-matters (below V_peak for Delta_T >= (V_peak - V_T)/50, i.e. every
-physiological Delta_T with the default peak). The point of the cap is that
+matters (below V_peak for Delta_T >= (V_peak - V_T)/50, i.e. Delta_T above about 1 mV
+with the default peak). The point of the cap is that
 the right-hand side stays finite for every finite V: a blown-up step ends at
 the peak crossing or at the bounds, never in inf/NaN. Above the cap the
 derivative of the spike term is 0, and the Jacobian says so.
 
 Default parameter values are the paper's regular-spiking cell, from memory:
 C = 281 pF, g_L = 30 nS, E_L = -70.6 mV, V_T = -50.4 mV, Delta_T = 2 mV,
-tau_w = 144 ms, a = 4 nS, b = 0.0805 nA, and V_peak = 20 mV with the reset
-at V_r = E_L. Synapse defaults are the bench-lif ones (SPEC.md), as in
-lif-conductance.
+tau_w = 144 ms, a = 4 nS, b = 0.0805 nA, reset at V_r = E_L. Synapse
+defaults are the bench-lif ones (SPEC.md), as in lif-conductance.
+
+The default peak is 0 mV, not the paper's 20 mV (from memory). Near the
+blow-up, e^{-x} falls linearly in time, so V reaches V_T + x Delta_T about
+(C/g_L) e^{-x} ms before the singularity: ~1e-10 ms at 0 mV but ~1e-14 ms
+at 20 mV, below the spacing of double-precision times after ~10 ms, where
+an adaptive solver can no longer step (scipy's DOP853 stops there). The
+spike time moves by less than 1e-9 ms between the two choices. For long runs
+a lower peak (e.g. V_T + 5 Delta_T, 0.06 ms before the singularity) is
+cheaper still.
 """
 from __future__ import annotations
 
@@ -69,6 +77,8 @@ W_BOUND_PA = 1.0e6
 
 _SCALE = np.array([10.0, 100.0, 10.0, 10.0])
 
+_BG = "Brette & Gerstner 2005, from memory"
+
 SPEC = ModelSpec(
     name="adex",
     code=CODE,
@@ -76,21 +86,21 @@ SPEC = ModelSpec(
     state_names=("v_mv", "w_pa", "g_exc_ns", "g_inh_ns"),
     params=(
         ParamInfo("i_bias_pa", P_IEXT, 0.0, "constant external current (pA); drives add to it"),
-        ParamInfo("v_peak_mv", P_VTH, 20.0, "spike detection (peak) voltage (mV); Brette & Gerstner 2005, from memory"),
-        ParamInfo("v_reset_mv", P_VRESET, -70.6, "reset voltage V_r (mV); = E_L, Brette & Gerstner 2005, from memory"),
+        ParamInfo("v_peak_mv", P_VTH, 0.0, "spike detection (peak) voltage (mV); see the module docstring"),
+        ParamInfo("v_reset_mv", P_VRESET, -70.6, f"reset voltage V_r = E_L (mV); {_BG}"),
         ParamInfo("t_ref_ms", P_TREF, 0.0, "refractory period, voltage clamped (ms); none in the paper"),
-        ParamInfo("c_m_pf", P_C_M, 281.0, "membrane capacitance (pF); Brette & Gerstner 2005, from memory"),
-        ParamInfo("g_l_ns", P_G_L, 30.0, "leak conductance (nS); Brette & Gerstner 2005, from memory"),
-        ParamInfo("e_l_mv", P_E_L, -70.6, "leak reversal potential (mV); Brette & Gerstner 2005, from memory"),
+        ParamInfo("c_m_pf", P_C_M, 281.0, f"membrane capacitance (pF); {_BG}"),
+        ParamInfo("g_l_ns", P_G_L, 30.0, f"leak conductance (nS); {_BG}"),
+        ParamInfo("e_l_mv", P_E_L, -70.6, f"leak reversal potential (mV); {_BG}"),
         ParamInfo("tau_syn_exc_ms", P_TAU_SYN_EXC, 4.0, "excitatory conductance decay (ms); SPEC.md bench-lif"),
         ParamInfo("tau_syn_inh_ms", P_TAU_SYN_INH, 8.0, "inhibitory conductance decay (ms); SPEC.md bench-lif"),
         ParamInfo("e_exc_mv", P_E_EXC, 0.0, "excitatory reversal potential (mV); SPEC.md bench-lif"),
         ParamInfo("e_inh_mv", P_E_INH, -80.0, "inhibitory reversal potential (mV); SPEC.md bench-lif"),
-        ParamInfo("v_t_mv", P_V_T, -50.4, "threshold slope-factor centre V_T (mV); Brette & Gerstner 2005, from memory"),
-        ParamInfo("delta_t_mv", P_DELTA_T, 2.0, "slope factor Delta_T (mV, > 0); Brette & Gerstner 2005, from memory"),
-        ParamInfo("tau_w_ms", P_TAU_W, 144.0, "adaptation time constant (ms); Brette & Gerstner 2005, from memory"),
-        ParamInfo("a_ns", P_A, 4.0, "subthreshold adaptation (nS); Brette & Gerstner 2005, from memory"),
-        ParamInfo("b_pa", P_B, 80.5, "spike-triggered adaptation increment (pA); Brette & Gerstner 2005, from memory"),
+        ParamInfo("v_t_mv", P_V_T, -50.4, f"threshold slope-factor centre V_T (mV); {_BG}"),
+        ParamInfo("delta_t_mv", P_DELTA_T, 2.0, f"slope factor Delta_T (mV, > 0); {_BG}"),
+        ParamInfo("tau_w_ms", P_TAU_W, 144.0, f"adaptation time constant (ms); {_BG}"),
+        ParamInfo("a_ns", P_A, 4.0, f"subthreshold adaptation (nS); {_BG}"),
+        ParamInfo("b_pa", P_B, 80.5, f"spike-triggered adaptation increment (pA); {_BG}"),
     ),
     exc_state=S_G_EXC,
     inh_state=S_G_INH,

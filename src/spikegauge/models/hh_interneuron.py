@@ -15,8 +15,10 @@ Equations (area units: mV, ms, uF/cm2, mS/cm2, uA/cm2)::
     alpha_h = 0.07 exp(-(V+58)/20)                  beta_h = 1 / (1 + exp(-(V+28)/10))
     alpha_n = 0.01 (V+34) / (1 - exp(-(V+34)/10))   beta_n = 0.125 exp(-(V+44)/80)
 
-A spike is an upward crossing of ``v_detect_mv`` (default 0 mV; spikes of
-this model peak near +20 to +30 mV); no reset, no refractory clamp.
+A spike is an upward crossing of ``v_detect_mv`` (default 0 mV; computed
+here with scipy, spikes peak at +22 to +32 mV for 0.17-10 uA/cm2 but only
+near +5 mV at 20 uA/cm2, so lower it for strong drive); no reset, no
+refractory clamp (``v_reset_mv`` NaN and ``t_ref_ms`` 0, both fixed).
 """
 from __future__ import annotations
 

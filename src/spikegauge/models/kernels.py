@@ -6,8 +6,17 @@ that may be longer than the model's own counts, ``J`` 2-D float64 at least
 
     rhs(code, y, p, clamped, dydt)    dydt = f(y)
     jac(code, y, p, clamped, J)       J[:n, :n] = d f / d y (structural zeros written too)
-    split(code, y, p, clamped, a, b)  f_i = a_i + b_i y_i with b_i = d f_i / d y_i
+    split(code, y, p, clamped, a, b)  f_i = a_i + b_i y_i (the exponential-Euler split)
     reset(code, y, p)                 the model's reset at a spike (none for HH models)
+
+The split: for every state but V, b_i = d f_i / d y_i (gates: a = phi alpha,
+b = -phi (alpha + beta), the Rush-Larsen form; synapses a = 0, b = -1/tau;
+AdEx w: a = a (V - E_L)/tau_w, b = -1/tau_w). For V, b = -(total membrane
+conductance)/C with the gates frozen and a = the rest of f_V. That equals
+d f_V / dV for the LIF models and hh-squid; for adex it leaves the
+exponential spike current in a, for hh-interneuron the slope of m_inf(V),
+since with those slopes in b an exponential step blows up on the upswing
+(see the models' ``split`` docstrings).
 
 ``clamped`` (bool) is the refractory clamp: dV/dt = 0, row 0 of J is zero,
 a_0 = b_0 = 0; every other state keeps evolving. Codes: 0 lif-current,
@@ -56,7 +65,7 @@ def jac(code, y, p, clamped, J):
 
 @jit
 def split(code, y, p, clamped, a, b):
-    """Quasi-linear split f_i = a_i + b_i y_i (b_i = d f_i / d y_i) into ``a``, ``b``."""
+    """Quasi-linear split f_i = a_i + b_i y_i of one cell into ``a``, ``b`` (see module docstring)."""
     if code == 0:
         lif_current.split(y, p, clamped, a, b)
     elif code == 1:
