@@ -203,8 +203,18 @@ def compare(reference, test, *, match_window_ms: float = 2.0, tau_ms: float = 5.
     for key in ("horizon_window_ms", "bin_ms", "count_bin_ms", "sync_bin_ms"):
         if not settings[key] > 0:
             raise InputError(f"{key} must be > 0, got {settings[key]}")
+    span = ref.t_stop_ms - ref.t_start_ms
+    n_bins = span / min(settings["bin_ms"], 0.5 * settings["horizon_window_ms"])
+    if not n_bins <= MAX_TIME_BINS:
+        raise InputError(f"{tst.source}: the interval {ref.t_start_ms:g}-{ref.t_stop_ms:g} ms holds "
+                         f"{n_bins:.3g} time bins of the population statistics; give --t-stop-ms "
+                         "(or larger bins)")
     m = match_rasters(ref, tst, match_window_ms)
     return _assemble(ref, tst, m, settings)
+
+
+MAX_TIME_BINS = 5e7
+"""More time bins than this (over 13 hours in 1 ms bins) is refused, not attempted."""
 
 
 def _assemble(ref: Raster, tst: Raster, m: Matching, settings: dict) -> Comparison:

@@ -114,6 +114,14 @@ class Raster:
         n_found = int(cell.max()) + 1 if cell.size else 0
         if n_cells is None:
             n_cells = n_found
+            if n_cells > max_cells():
+                i = int(np.argmax(cell))
+                raise InputError(f"{source}: {where} {i}: cell id {cell[i]} implies {n_cells:.3g} cells, "
+                                 f"more than this machine can compare ({max_cells():.3g}); give the "
+                                 "cell count (--cells) if ids are sparse labels")
+        elif not 0 <= n_cells <= max_cells():
+            raise InputError(f"{source}: n_cells = {n_cells} is not between 0 and {max_cells():.3g}, "
+                             "the most this machine can compare")
         elif n_found > n_cells:
             i = int(np.argmax(cell >= n_cells))
             raise InputError(f"{source}: {where} {i}: cell id {cell[i]} but the raster has "
@@ -234,8 +242,11 @@ def _read_npz(path: Path) -> _Table:
     try:
         with np.load(path, allow_pickle=False) as data:
             arrays = {k: data[k] for k in data.files}
-    except (OSError, ValueError) as exc:
-        raise InputError(f"{path}: not a readable NPZ file ({exc})") from None
+    except Exception as exc:  # EOFError, zipfile.BadZipFile, CRC errors, OSError, ValueError...
+        raise InputError(f"{path}: not a readable NPZ file ({type(exc).__name__}: "
+                         f"{' '.join(str(exc).split())})") from None
+    if not isinstance(arrays, dict) or not arrays:
+        raise InputError(f"{path}: not a readable NPZ file (no arrays)")
     for key in ("cell", "time_ms"):
         if key not in arrays:
             raise InputError(f"{path}: key '{key}' missing (need 'cell' and 'time_ms')")
@@ -249,21 +260,46 @@ def _read_npz(path: Path) -> _Table:
             raise InputError(f"{path}: entry {i}: cell id {cell[i]} is not an integer")
     elif cell.dtype.kind not in "iu":
         raise InputError(f"{path}: 'cell' must hold integers, got dtype {cell.dtype}")
+    if cell.dtype.kind == "u" and cell.size and cell.max() > np.iinfo(np.int64).max:
+        i = int(np.argmax(cell > np.iinfo(np.int64).max))
+        raise InputError(f"{path}: entry {i}: cell id {cell[i]} is too large")
     if time_ms.dtype.kind not in "iuf":
         raise InputError(f"{path}: 'time_ms' must be numeric, got dtype {time_ms.dtype}")
     table = _Table(labels=cell.astype(np.int64), time_ms=time_ms.astype(np.float64),
                    source=str(path))
     _check_values(table.labels, table.time_ms, table.source, "entry", lambda i: i)
 
-    def scalar(key, kind):
-        return kind(arrays[key]) if key in arrays else None
-    table.n_cells = scalar("n_cells", int)
-    table.t_start_ms = scalar("t_start_ms", float)
-    table.t_stop_ms = scalar("t_stop_ms", float)
+    table.n_cells = _npz_scalar(arrays, "n_cells", path, integer=True)
+    table.t_start_ms = _npz_scalar(arrays, "t_start_ms", path)
+    table.t_stop_ms = _npz_scalar(arrays, "t_stop_ms", path)
     if "group_names" in arrays and "group_first" in arrays:
         table.group_names = tuple(str(g) for g in np.atleast_1d(arrays["group_names"]))
         table.group_first = np.atleast_1d(arrays["group_first"]).astype(np.int64)
     return table
+
+
+BYTES_PER_CELL = 512
+"""Rough memory a comparison needs per cell (offsets, per-cell tables and distances)."""
+
+
+def max_cells() -> int:
+    """The largest cell count whose per-cell arrays fit in the memory available now."""
+    from ..scenario import available_memory_bytes
+    return int(available_memory_bytes() // BYTES_PER_CELL)
+
+
+def _npz_scalar(arrays: dict, key: str, path: Path, integer: bool = False):
+    """A scalar entry of an NPZ file: a finite number (a non-negative integer for counts), or None."""
+    if key not in arrays:
+        return None
+    a = arrays[key]
+    kind = "a non-negative integer" if integer else "a finite number"
+    if a.ndim != 0 or a.dtype.kind not in "iuf":
+        raise InputError(f"{path}: {key}: must be {kind}, got {a!r}")
+    v = a.item()
+    if not np.isfinite(v) or (integer and (v < 0 or v != int(v))):
+        raise InputError(f"{path}: {key}: must be {kind}, got {v!r}")
+    return int(v) if integer else float(v)
 
 
 def _read_text(path: Path, factor: float) -> _Table:
@@ -493,6 +529,13 @@ def load_rasters(sources: Sequence, *, n_cells: int | None = None, t_start_ms: f
         raise InputError("the sources describe networks of different sizes: " + ", ".join(
             f"{t.source} has {t.n_cells} cells" for t in items if t.n_cells is not None))
     if n_cells is None:
+        for t in tables:  # name the file whose ids imply more cells than fit in memory
+            if t.labels.size and int(t.labels.max()) + 1 > max_cells():
+                i = int(np.argmax(t.labels))
+                place = f"line {t.lines[i]}" if t.lines is not None else f"{t.where} {i}"
+                raise InputError(f"{t.source}: {place}: cell id {t.labels[i]} implies "
+                                 f"{int(t.labels[i]) + 1:.3g} cells, more than this machine can "
+                                 f"compare ({max_cells():.3g}); give the cell count (--cells)")
         found = [int(t.labels.max()) + 1 for t in tables if t.labels.size]
         found += [r.n_cells for r in items if isinstance(r, Raster)]
         n_cells = declared[0] if declared else max(found, default=0)

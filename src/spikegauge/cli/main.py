@@ -22,13 +22,26 @@ class _Group(click.Group):
         except InputError as exc:
             if debug:
                 raise
-            click.echo(f"error: {exc}", err=True)
+            click.echo(f"error: {_one_line(exc)}", err=True)
             ctx.exit(2)
         except ComputationError as exc:
             if debug:
                 raise
-            click.echo(f"failed: {exc}", err=True)
+            click.echo(f"failed: {_one_line(exc)}", err=True)
             ctx.exit(1)
+        except (click.exceptions.ClickException, click.exceptions.Exit, click.exceptions.Abort,
+                KeyboardInterrupt, SystemExit):
+            raise
+        except Exception as exc:  # a bug of ours: one line, the traceback only with --debug
+            if debug:
+                raise
+            click.echo(f"internal error: {type(exc).__name__}: {_one_line(exc)} "
+                       "(this is a bug; run with --debug for the traceback)", err=True)
+            ctx.exit(1)
+
+
+def _one_line(exc: BaseException) -> str:
+    return " ".join(str(exc).split())
 
 
 @click.group(cls=_Group)

@@ -23,6 +23,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..errors import ComputationError, InputError
+
 from ..models import MODELS, max_params, max_states, rest_state
 from ..models.base import P_IEXT, RECEPTOR_CURRENT, ModelSpec
 from ..models.kernels import split
@@ -97,7 +99,13 @@ def build_network(scenario: Scenario) -> Network:
             params[rows, P_IEXT] += drive.current.sample(stream(seed, STREAM_DRIVE, di), rows.stop - rows.start)
     for gi, group in enumerate(scenario.groups):
         rows = slice(first[gi], first[gi + 1])
-        y0[rows, :group.spec.n_states] = _group_initial(seed, gi, group, params[rows, :group.spec.n_params])
+        try:
+            y0[rows, :group.spec.n_states] = _group_initial(seed, gi, group,
+                                                            params[rows, :group.spec.n_params])
+        except ComputationError as exc:
+            where = f"{scenario.path}: " if getattr(scenario, "path", None) else ""
+            raise InputError(f"{where}group[{gi}].parameters: {' '.join(str(exc).split())}; "
+                             f"give group[{gi}].initial.v_mv to start elsewhere") from None
 
     syn = _synapses(scenario, first)
     poisson, events = _drives(scenario, first)
@@ -177,10 +185,14 @@ def initial_state(spec: ModelSpec, params: np.ndarray, given: dict) -> np.ndarra
     n = params.shape[0]
     quiet = params.copy()
     quiet[:, P_IEXT] = 0.0
-    # Resting states are solved once per distinct parameter row.
-    uniq, inverse = np.unique(quiet, axis=0, return_inverse=True)
-    rest = np.array([rest_state(spec, row) for row in uniq])
-    y = rest[inverse.reshape(-1)]
+    if 0 in given:
+        # With the voltage given, the resting state is not needed (and need not exist).
+        y = np.zeros((n, spec.n_states))
+    else:
+        # Resting states are solved once per distinct parameter row.
+        uniq, inverse = np.unique(quiet, axis=0, return_inverse=True)
+        rest = np.array([rest_state(spec, row) for row in uniq])
+        y = rest[inverse.reshape(-1)]
     for k, values in given.items():
         y[:, k] = values
     if 0 in given:
