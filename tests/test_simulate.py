@@ -146,3 +146,10 @@ def test_simulate_command_input_error_exit_2(tmp_path):
                                    "--rtol", "1e-3", "--out", str(tmp_path / "x")])
     assert res.exit_code == 2
     assert res.output.count("\n") == 1 and "rtol" in res.output
+
+
+def test_t_stop_beyond_duration_is_refused():
+    # The drive is defined up to the duration only (step ends, Poisson trains): running
+    # past it would silently lose input.
+    with pytest.raises(spikegauge.InputError, match="duration_ms"):
+        spikegauge.simulate("scenarios/demo-lif.toml", t_stop_ms=1500.0)

@@ -46,13 +46,16 @@ class EventList:
 
     Each event: at ``time_ms`` add ``weight`` to the receptor's state of ``cell``
     (for RECEPTOR_CURRENT: add ``weight`` to the cell's external current).
-    Sorted by (time, cell).
+    ``source`` is ``-(1 + drive index)`` of the drive each event comes from, so
+    same-time events into one cell are applied in a fixed order. Sorted by
+    (time, cell, source).
     """
 
     time_ms: np.ndarray   # float64 (n,)
     cell: np.ndarray      # int64 (n,)
     receptor: np.ndarray  # int64 (n,)
     weight: np.ndarray    # float64 (n,)
+    source: np.ndarray    # int64 (n,)
 
 
 @dataclass(frozen=True)
