@@ -103,7 +103,9 @@ class LogNormal:
     @property
     def log_sigma(self) -> float:
         """Standard deviation of log(value)."""
-        return math.sqrt(math.log1p((self.std / self.mean) ** 2))
+        ratio = self.std / self.mean
+        # log1p(r^2) overflows for r beyond ~1e154; 2 log r is its value there to double precision.
+        return math.sqrt(2.0 * math.log(ratio) if ratio > 1e150 else math.log1p(ratio * ratio))
 
     @property
     def log_mu(self) -> float:

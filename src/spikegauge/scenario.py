@@ -806,3 +806,47 @@ def _check_memory(scenario: Scenario, label: str, max_memory_gb: float | None) -
     if estimate > limit:
         raise InputError(f"{label}: the network needs about {estimate / 1e9:.2f} GB, more than {what}; "
                          "set max_memory_gb in [scenario] (or --max-memory-gb) to go ahead anyway")
+    spikes = spike_count_bound(scenario)
+    if estimate + BYTES_PER_SPIKE * spikes > limit:
+        raise InputError(
+            f"{label}: the run may record up to {spikes:.3g} spikes ({BYTES_PER_SPIKE * spikes / 1e9:.3g} GB "
+            f"at one spike per refractory period, or per ms without one), more than {what}; shorten "
+            "duration_ms, or set max_memory_gb in [scenario] (or --max-memory-gb) to go ahead anyway")
+    drive_block = drive_block_events(scenario)
+    if BYTES_PER_EVENT * drive_block > limit:
+        raise InputError(
+            f"{label}: the Poisson drive holds about {drive_block:.3g} events per "
+            f"{DRIVE_BLOCK_MS:g} ms block ({BYTES_PER_EVENT * drive_block / 1e9:.3g} GB), more than "
+            f"{what}; lower rate_hz, or set max_memory_gb in [scenario] (or --max-memory-gb)")
+
+
+BYTES_PER_SPIKE = 16
+"""A recorded spike: cell id (int64) and time (float64)."""
+
+DRIVE_BLOCK_MS = 10.0
+"""Length of the blocks the Poisson drive is generated in (network.drive uses this value)."""
+
+
+def spike_count_bound(scenario: Scenario) -> float:
+    """Upper bound on the spikes a run records: one per refractory period per cell.
+
+    Models without a refractory period (the Hodgkin–Huxley ones) are bounded by
+    one spike per ms, about the width of their action potential (common practice).
+    """
+    total = 0.0
+    for g in scenario.groups:
+        tref = g.parameters.get("t_ref_ms")
+        tref_ms = tref.support()[0] if tref is not None else g.spec.default_params()[3]
+        per_ms = 1.0 / max(float(tref_ms), 1.0) if math.isfinite(tref_ms) else 1.0
+        total += g.size * scenario.duration_ms * per_ms
+    return total
+
+
+def drive_block_events(scenario: Scenario) -> float:
+    """Expected Poisson drive events in one generation block, all drives together."""
+    total = 0.0
+    for d in scenario.drives:
+        if d.kind == "poisson":
+            rate_max = d.rate_hz.support()[1]
+            total += scenario.groups[d.target_index].size * rate_max * DRIVE_BLOCK_MS / 1000.0
+    return total

@@ -9,6 +9,7 @@ from pathlib import Path
 import numba
 import numpy as np
 import pandas as pd
+import scipy
 
 from .errors import InputError
 from .integrate.engine import N_COUNTERS, CellState, SpikeBuffer, WindowArrivals, run_windows
@@ -248,7 +249,8 @@ def _meta(scen, network, t_stop) -> dict:
         scenario_digest=hashlib.sha256(text.encode()).hexdigest() if text else None,
         seed=int(network.seed),
         t_requested_ms=t_stop,
-        versions=dict(spikegauge=__version__, numpy=np.__version__, numba=numba.__version__,
-                      pandas=pd.__version__, python=platform.python_version()),
+        versions=dict(spikegauge=__version__, numpy=np.__version__, scipy=scipy.__version__,
+                      numba=numba.__version__, pandas=pd.__version__,
+                      python=platform.python_version()),
     )
     return meta

@@ -273,8 +273,16 @@ def _read_npz(path: Path) -> _Table:
     table.t_start_ms = _npz_scalar(arrays, "t_start_ms", path)
     table.t_stop_ms = _npz_scalar(arrays, "t_stop_ms", path)
     if "group_names" in arrays and "group_first" in arrays:
-        table.group_names = tuple(str(g) for g in np.atleast_1d(arrays["group_names"]))
-        table.group_first = np.atleast_1d(arrays["group_first"]).astype(np.int64)
+        names = np.atleast_1d(arrays["group_names"])
+        first = np.atleast_1d(arrays["group_first"])
+        if names.ndim != 1 or names.size == 0:
+            raise InputError(f"{path}: group_names: needs at least one name")
+        if first.ndim != 1 or first.dtype.kind not in "iu" or first.size not in (names.size, names.size + 1) \
+                or (first.size and (first[0] != 0 or np.any(np.diff(first.astype(np.int64)) < 0))):
+            raise InputError(f"{path}: group_first: must be {names.size} non-decreasing integers "
+                             "starting at 0 (one per group name)")
+        table.group_names = tuple(str(g) for g in names)
+        table.group_first = first.astype(np.int64)
     return table
 
 
@@ -295,7 +303,8 @@ def _npz_scalar(arrays: dict, key: str, path: Path, integer: bool = False):
     a = arrays[key]
     kind = "a non-negative integer" if integer else "a finite number"
     if a.ndim != 0 or a.dtype.kind not in "iuf":
-        raise InputError(f"{path}: {key}: must be {kind}, got {a!r}")
+        got = f"an array of shape {a.shape}" if a.ndim else f"a value of type {a.dtype}"
+        raise InputError(f"{path}: {key}: must be {kind}, got {got}")
     v = a.item()
     if not np.isfinite(v) or (integer and (v < 0 or v != int(v))):
         raise InputError(f"{path}: {key}: must be {kind}, got {v!r}")

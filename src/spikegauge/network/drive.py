@@ -16,11 +16,9 @@ import math
 
 import numpy as np
 
+from ..scenario import DRIVE_BLOCK_MS
 from .arrays import Network, PoissonDrive
 from .build import STREAM_POISSON
-
-DRIVE_BLOCK_MS = 10.0
-"""Length (ms) of the blocks Poisson drive is generated in."""
 
 
 def poisson_block(seed: int, drive: PoissonDrive, block: int) -> tuple[np.ndarray, np.ndarray]:
