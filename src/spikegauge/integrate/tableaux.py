@@ -16,20 +16,31 @@ estimate and a continuous extension (dense output) for threshold crossings:
     Hairer, Norsett & Wanner, Solving ODEs I, 2nd ed., section II.6 (the
     quartic below; its coefficients ``DP54_DENSE_D`` are those of the DOPRI5
     code).
-``ros3p``
-    ROS3P, Lang & Verwer (2001), "ROS3P - an accurate third-order Rosenbrock
-    solver designed for parabolic problems", BIT 41:731-738. Three stages,
-    linearly implicit with the exact Jacobian, A-stable, embedded second-order
-    solution. Written here in its original (alpha, gamma, b) form and turned
-    into the form solved in practice (Hairer & Wanner, Solving ODEs II,
-    section IV.7, eq. (7.3)): with ``u_i = sum_j gamma_ij k_j``,
+``rodas3``
+    Rodas3, Sandu, Verwer, Blom, Spee, Carmichael & Potra (1997),
+    "Benchmarking stiff ODE solvers for atmospheric chemistry problems II:
+    Rosenbrock solvers", Atmos Environ 31:3459-3472. Four stages, linearly
+    implicit with the exact Jacobian, stiffly accurate (the embedded
+    second-order solution is the last stage point, the error estimate the
+    last stage), three right-hand-side evaluations per step. Published in the
+    form solved in practice (Hairer & Wanner, Solving ODEs II, section IV.7,
+    eq. (7.3)):
 
         (I / (h gamma) - J) u_i = f(y + sum_j a_ij u_j) + sum_j (c_ij / h) u_j,
-        y1 = y + sum_i m_i u_i,   error = sum_i (m_i - mhat_i) u_i,
+        y1 = y + sum_i m_i u_i,   error = sum_i e_i u_i.
 
-    ``a = alpha Gamma^-1``, ``C = diag(1/gamma) - Gamma^-1``, ``m = b Gamma^-1``.
-    Its dense output is the cubic Hermite interpolant (third order, matching
-    the method); f at the new point is the next step's first stage anyway.
+    The original (alpha, Gamma, b) form, in which the order conditions are
+    stated, follows from ``Gamma^-1 = diag(1/gamma) - C``, ``alpha = a Gamma``,
+    ``b = m Gamma``. Its dense output is the cubic Hermite interpolant (third
+    order, matching the method); f at the new point is the next step's first
+    stage anyway.
+
+    Not ROS3P (Lang & Verwer 2001), the other candidate: its stage 2 has
+    alpha_21 + gamma_21 = 0, so on a linear autonomous problem k2 = k1 and its
+    embedded solution equals the propagated one. The error estimate then
+    vanishes between events for every LIF cell, and the step grows without
+    control (measured while writing this module: a LIF spike-time error of
+    4e-5 ms at any tolerance).
 
 Explicit tableaux: ``A`` (s, s) strictly lower triangular, ``B`` (s,) the
 propagated weights, ``BHAT`` (s,) the embedded weights, ``C`` (s,) nodes, and
@@ -38,7 +49,6 @@ propagated weights, ``BHAT`` (s,) the embedded weights, ``C`` (s,) nodes, and
 """
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -78,52 +88,49 @@ DP54_DENSE_D = np.array([-12715105075.0 / 11282082432.0, 0.0, 87487479700.0 / 32
                          -10690763975.0 / 1880347072.0, 701980252875.0 / 199316789632.0,
                          -1453857185.0 / 822651844.0, 69997945.0 / 29380423.0])
 
-# -------------------------------------------------------------------- ros3p
-ROS3P_GAMMA = 0.5 + math.sqrt(3.0) / 6.0
-"""Diagonal gamma of ROS3P (Lang & Verwer 2001): the root of 6 g^2 - 6 g + 1 = 0 above 1/2."""
-ROS3P_ALPHA = np.array([
-    [0.0, 0.0, 0.0],
-    [1.0, 0.0, 0.0],
-    [1.0, 0.0, 0.0],
+# ------------------------------------------------------------------- rodas3
+RODAS3_GAMMA = 0.5
+RODAS3_A_T = np.array([
+    [0.0, 0.0, 0.0, 0.0],
+    [0.0, 0.0, 0.0, 0.0],
+    [2.0, 0.0, 0.0, 0.0],
+    [2.0, 0.0, 1.0, 0.0],
 ])
-ROS3P_GAMMA_MAT = np.array([
-    [ROS3P_GAMMA, 0.0, 0.0],
-    [-1.0, ROS3P_GAMMA, 0.0],
-    [-ROS3P_GAMMA, -(0.5 + math.sqrt(3.0) / 3.0), ROS3P_GAMMA],
+RODAS3_C_T = np.array([
+    [0.0, 0.0, 0.0, 0.0],
+    [4.0, 0.0, 0.0, 0.0],
+    [1.0, -1.0, 0.0, 0.0],
+    [1.0, -1.0, -8.0 / 3.0, 0.0],
 ])
-"""Gamma (lower triangular, diagonal gamma) of the original form."""
-ROS3P_B = np.array([2.0 / 3.0, 0.0, 1.0 / 3.0])
-ROS3P_BHAT = np.array([1.0 / 3.0, 1.0 / 3.0, 1.0 / 3.0])
+RODAS3_M = np.array([2.0, 0.0, 1.0, 1.0])
+RODAS3_E_T = np.array([0.0, 0.0, 0.0, 1.0])
 
 
-def rosenbrock_transformed(alpha: np.ndarray, gamma_mat: np.ndarray, b: np.ndarray,
-                           bhat: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Coefficients of the form solved in practice (Hairer & Wanner II, IV.7).
+def rosenbrock_original(a_t: np.ndarray, c_t: np.ndarray, gamma: float, m: np.ndarray,
+                        e: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Original-form coefficients of a Rosenbrock method given in the transformed form.
+
+    Hairer & Wanner II, IV.7: with ``u = Gamma k``, ``C = diag(1/gamma) - Gamma^-1``,
+    ``a = alpha Gamma^-1``, ``m = b Gamma^-1``.
 
     Returns
     -------
-    a : ndarray (s, s)
-        ``alpha @ inv(Gamma)`` (strictly lower triangular).
-    c : ndarray (s, s)
-        ``diag(1/gamma) - inv(Gamma)`` (strictly lower triangular).
-    m, mhat : ndarray (s,)
-        ``b @ inv(Gamma)`` and ``bhat @ inv(Gamma)``.
+    alpha : ndarray (s, s)
+    gamma_mat : ndarray (s, s)
+        Lower triangular, diagonal ``gamma``.
+    b, bhat : ndarray (s,)
+        Propagated and embedded weights.
     """
-    ginv = np.linalg.inv(gamma_mat)
-    a = alpha @ ginv
-    c = np.diag(1.0 / np.diag(gamma_mat)) - ginv
-    return a, c, b @ ginv, bhat @ ginv
+    s = m.size
+    gamma_mat = np.linalg.inv(np.eye(s) / gamma - c_t)
+    return a_t @ gamma_mat, gamma_mat, m @ gamma_mat, (m - e) @ gamma_mat
 
-
-ROS3P_A_T, ROS3P_C_T, ROS3P_M, ROS3P_MHAT = rosenbrock_transformed(
-    ROS3P_ALPHA, ROS3P_GAMMA_MAT, ROS3P_B, ROS3P_BHAT)
-ROS3P_E_T = ROS3P_M - ROS3P_MHAT
 
 # ---------------------------------------------------------------- registry
 BS32 = 0
 DP54 = 1
-ROS3P = 2
-ADAPTIVE_STEPPER_CODES = {"bs32": BS32, "dp54": DP54, "ros3p": ROS3P}
+RODAS3 = 2
+ADAPTIVE_STEPPER_CODES = {"bs32": BS32, "dp54": DP54, "rodas3": RODAS3}
 
 
 @dataclass(frozen=True)
@@ -154,5 +161,5 @@ class StepperInfo:
 STEPPER_INFO = {
     "bs32": StepperInfo("bs32", 3, 2, 3, False),
     "dp54": StepperInfo("dp54", 5, 4, 6, False),
-    "ros3p": StepperInfo("ros3p", 3, 2, 3, True),
+    "rodas3": StepperInfo("rodas3", 3, 2, 3, True),
 }

@@ -1,0 +1,233 @@
+"""Local adaptive stepping: every cell its own step size and history (numba kernels).
+
+Inside a window each cell integrates independently (DESIGN.md: every arrival
+before the window end is known), so cells can run in parallel, in fixed
+chunks, each writing only its own rows: the result is bit-identical for any
+thread count and for a serial pass (the Python layer picks which).
+
+A cell's step ends exactly at each of its arrival times (arrivals at the same
+time are applied together, in the order the window hands them over), at the
+end of its refractory clamp and at the window end; the step size it would
+have taken is kept for the step after. A threshold crossing is located on the
+accepted step's dense output (:mod:`spikegauge.integrate.dense`); a model
+with a reset is reset at the crossing time and continues from there, one
+without (Hodgkin-Huxley) just records the spike.
+"""
+import numba
+import numpy as np
+
+from .._numba import jit, pjit
+from ..models.base import P_TREF, P_VRESET, P_VTH
+from ..models.kernels import reset, rhs
+from .adaptive_steppers import (DENSE_DEGREE, F1_ROW, N_ROWS, ROW_DENSE, ROW_ERR, ROW_Y1,
+                                dense_coefficients, dense_state, finish_step, trial_step)
+from .dense import upward_crossings
+from .engine import (C_ARRIVALS, C_NEWTON, C_REJECTED, C_RHS, C_STEPS, DIV_BOUNDS, DIV_MAX_STEPS,
+                     DIV_MIN_STEP)
+from .fixed import _apply, _in_bounds
+from .step_control import (error_norm, initial_step, next_step_accepted, next_step_rejected)
+
+STRETCH = 1.05
+"""A step that would end within this factor of the next event is stretched onto it.
+
+Without it a step landing just short of an event leaves a sliver step behind;
+5 % sits well inside the controller's safety factor of 0.9.
+"""
+
+
+@jit
+def record_step(slot, t, h, accepted, tr_time, tr_h, tr_acc, tr_count):
+    """Append (t, h, accepted) to trace row ``slot`` (no-op for slot < 0); counts past capacity."""
+    if slot < 0:
+        return
+    k = tr_count[slot]
+    if k < tr_time.shape[1]:
+        tr_time[slot, k] = t
+        tr_h[slot, k] = h
+        tr_acc[slot, k] = accepted
+    tr_count[slot] = k + 1
+
+
+@jit
+def spike_time(t, th, h, t_new):
+    """Crossing time from its theta, never past the step end (rounding)."""
+    if th >= 1.0:
+        return t_new
+    return min(t + th * h, t_new)
+
+
+@jit
+def _local_cell(method, code, y, p, refr0, h_start, err_prev0, n, t0, t1, rtol, atol, scale, pzero,
+                lower, upper, at, ar, aw, a_lo, a_hi, spk, cnt, rstate, K, M, piv, J, work,
+                slot, tr_time, tr_h, tr_acc, tr_count, h_min, h_max, max_steps, order, expo):
+    """Advance one cell from t0 to t1.
+
+    Returns (refractory_until, n_spikes, next_step, err_prev, div_time, div_code).
+    ``h_start`` <= 0 asks for an initial step estimate.
+    """
+    t = t0
+    a = a_lo
+    nsp = 0
+    cap = spk.size
+    refr = refr0
+    vth = p[P_VTH]
+    has_reset = p[P_VRESET] == p[P_VRESET]
+    tref = p[P_TREF]
+    h_prop = h_start
+    err_prev = err_prev0
+    have_f = False
+    f_clamped = False
+    after_reject = False
+    deg = DENSE_DEGREE[method]
+    f1row = F1_ROW[method]
+    c = np.empty(5)
+    cross = np.empty(4)
+    while True:
+        while a < a_hi and at[a] <= t:
+            _apply(code, y, p, ar[a], aw[a], rstate)
+            cnt[C_ARRIVALS] += 1
+            a += 1
+            have_f = False
+        if t >= t1:
+            break
+        clamped = t < refr
+        t_end = t1
+        if a < a_hi and at[a] < t_end:
+            t_end = at[a]
+        if clamped and refr < t_end:
+            t_end = refr
+        if have_f and f_clamped != clamped:
+            have_f = False
+        if not have_f:
+            rhs(code, y, p, clamped, K[0])
+            cnt[C_RHS] += 1
+            have_f = True
+            f_clamped = clamped
+        if h_prop <= 0.0:
+            h_prop, nfi = initial_step(code, y, p, clamped, K[0], n, order, rtol, atol, scale, pzero,
+                                       h_max, work)
+            cnt[C_RHS] += nfi
+        # trial steps until one is accepted
+        while True:
+            if cnt[C_STEPS] + cnt[C_REJECTED] >= max_steps:
+                return refr, nsp, h_prop, err_prev, t, DIV_MAX_STEPS
+            h = min(h_prop, h_max)
+            cut = False
+            if t + STRETCH * h >= t_end:
+                cut = t_end - t < h
+                h = t_end - t
+                t_new = t_end
+            else:
+                t_new = t + h
+            nf, nls = trial_step(method, code, y, p, clamped, h, n, K, M, piv, J)
+            if nf < 0:
+                err = np.inf
+            else:
+                cnt[C_RHS] += nf
+                cnt[C_NEWTON] += nls
+                err = error_norm(y, K[ROW_Y1], K[ROW_ERR], n, rtol, atol, scale, pzero)
+                if not (err <= np.inf):  # NaN: treat as a failed step
+                    err = np.inf
+            if err <= 1.0:
+                break
+            cnt[C_REJECTED] += 1
+            record_step(slot, t, h, False, tr_time, tr_h, tr_acc, tr_count)
+            h_prop = next_step_rejected(h, err, expo)
+            after_reject = True
+            if h_prop < h_min:
+                return refr, nsp, h_prop, err_prev, t, DIV_MIN_STEP
+        h_new, err_prev = next_step_accepted(h, err, err_prev, expo, after_reject)
+        after_reject = False
+        if cut and h_new >= h:
+            # the step was shortened by an event, not by its error: keep the longer proposal
+            h_new = max(h_new, h_prop)
+        h_prop = h_new
+        cnt[C_RHS] += finish_step(method, code, p, clamped, n, K)
+        cnt[C_STEPS] += 1
+        th_reset = 2.0
+        if not clamped:
+            dense_coefficients(method, y, K, h, 0, c)
+            ncr = upward_crossings(c, deg, vth, 1.0, cross)
+            if has_reset and ncr > 1:
+                ncr = 1
+            for k in range(ncr):
+                if nsp < cap:
+                    spk[nsp] = spike_time(t, cross[k], h, t_new)
+                nsp += 1
+            if has_reset and ncr > 0:
+                th_reset = cross[0]
+        if th_reset <= 1.0:
+            ts = spike_time(t, th_reset, h, t_new)
+            dense_state(method, y, K, h, n, th_reset, K[ROW_DENSE])
+            for q in range(n):
+                y[q] = K[ROW_DENSE, q]
+            reset(code, y, p)
+            if tref > 0.0:
+                refr = ts + tref
+            have_f = False
+            record_step(slot, t, ts - t, True, tr_time, tr_h, tr_acc, tr_count)
+            t = ts
+        else:
+            for q in range(n):
+                y[q] = K[ROW_Y1, q]
+                K[0, q] = K[f1row, q]
+            f_clamped = clamped
+            record_step(slot, t, h, True, tr_time, tr_h, tr_acc, tr_count)
+            t = t_new
+        if not _in_bounds(y, n, lower, upper):
+            return refr, nsp, h_prop, err_prev, t, DIV_BOUNDS
+    return refr, nsp, h_prop, err_prev, np.inf, 0
+
+
+@jit
+def local_chunk(lo, hi, method, code, Y, P, refr, div_time, div_code, h_cell, err_cell, lower, upper,
+                scale, pzero, nst, t0, t1, rtol, atol, arr_ptr, arr_time, arr_recep, arr_weight,
+                spk_count, spk_time, counters, rstate, tr_slot, tr_time, tr_h, tr_acc, tr_count,
+                h_min, h_max, max_steps, order, expo):
+    """Advance cells lo..hi-1 from t0 to t1, one after the other.
+
+    Per-cell arrays are (n_cells, ...) as in :class:`~spikegauge.integrate.engine.CellState`;
+    ``h_cell``, ``err_cell`` (n_cells,) carry each cell's step size and PI memory
+    across windows; ``tr_slot[i]`` is cell i's trace row or -1.
+    """
+    width = Y.shape[1]
+    K = np.empty((N_ROWS, width))
+    M = np.empty((width, width))
+    J = np.empty((width, width))
+    piv = np.empty(width, dtype=np.int64)
+    work = np.empty((2, width))
+    for i in range(lo, hi):
+        if div_time[i] < np.inf:
+            continue
+        r, nsp, hn, en, tdiv, dcode = _local_cell(
+            method, code[i], Y[i], P[i], refr[i], h_cell[i], err_cell[i], nst[i], t0, t1,
+            rtol, atol, scale[i], pzero[i], lower[i], upper[i],
+            arr_time, arr_recep, arr_weight, arr_ptr[i], arr_ptr[i + 1],
+            spk_time[i], counters[i], rstate, K, M, piv, J, work,
+            tr_slot[i], tr_time, tr_h, tr_acc, tr_count, h_min, h_max, max_steps, order, expo)
+        refr[i] = r
+        spk_count[i] = nsp
+        h_cell[i] = hn
+        err_cell[i] = en
+        if dcode != 0:
+            div_time[i] = tdiv
+            div_code[i] = dcode
+
+
+@pjit
+def local_window_parallel(n_chunks, method, code, Y, P, refr, div_time, div_code, h_cell, err_cell,
+                          lower, upper, scale, pzero, nst, t0, t1, rtol, atol, arr_ptr, arr_time,
+                          arr_recep, arr_weight, spk_count, spk_time, counters, rstate, tr_slot,
+                          tr_time, tr_h, tr_acc, tr_count, h_min, h_max, max_steps, order, expo):
+    """:func:`local_chunk` over ``n_chunks`` fixed chunks of cells, in parallel.
+
+    Each chunk writes only its own cells' rows (and trace rows), so the
+    result is the same bits as one serial pass for any chunking or thread count.
+    """
+    n_cells = code.size
+    for ch in numba.prange(n_chunks):
+        local_chunk(ch * n_cells // n_chunks, (ch + 1) * n_cells // n_chunks, method, code, Y, P,
+                    refr, div_time, div_code, h_cell, err_cell, lower, upper, scale, pzero, nst,
+                    t0, t1, rtol, atol, arr_ptr, arr_time, arr_recep, arr_weight, spk_count,
+                    spk_time, counters, rstate, tr_slot, tr_time, tr_h, tr_acc, tr_count, h_min,
+                    h_max, max_steps, order, expo)
