@@ -77,10 +77,11 @@ def hermite_first_crossing(y0, y1, f0, f1, h, level):
     A = 6.0 * y0 + 3.0 * h * f0 - 6.0 * y1 + 3.0 * h * f1
     B = -6.0 * y0 - 4.0 * h * f0 + 6.0 * y1 - 2.0 * h * f1
     C = h * f0
-    pts = np.empty(4)
-    m = 0
-    pts[m] = 0.0
-    m += 1
+    # Interior critical points in (0, 1), ascending; NaN marks "none". Scalars
+    # rather than a small array: this runs every step, and an allocation per
+    # step costs more than the whole search.
+    c1 = np.nan
+    c2 = np.nan
     if A != 0.0:
         disc = B * B - 4.0 * A * C
         if disc >= 0.0:
@@ -92,21 +93,24 @@ def hermite_first_crossing(y0, y1, f0, f1, h, level):
             lo = min(r1, r2)
             hi = max(r1, r2)
             if 0.0 < lo < 1.0:
-                pts[m] = lo
-                m += 1
+                c1 = lo
             if 0.0 < hi < 1.0 and hi != lo:
-                pts[m] = hi
-                m += 1
+                if c1 == c1:
+                    c2 = hi
+                else:
+                    c1 = hi
     elif B != 0.0:
         r = -C / B
         if 0.0 < r < 1.0:
-            pts[m] = r
-            m += 1
-    pts[m] = 1.0
-    m += 1
-    for j in range(1, m):
-        if hermite_value(y0, y1, f0, f1, h, pts[j]) >= level:
-            return _bracketed_root(y0, y1, f0, f1, h, level, pts[j - 1], pts[j])
+            c1 = r
+    left = 0.0
+    for j in range(3):
+        right = c1 if j == 0 else (c2 if j == 1 else 1.0)
+        if right != right:
+            continue
+        if hermite_value(y0, y1, f0, f1, h, right) >= level:
+            return _bracketed_root(y0, y1, f0, f1, h, level, left, right)
+        left = right
     return -1.0
 
 

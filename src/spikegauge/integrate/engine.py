@@ -20,6 +20,11 @@ A strategy supplies a *window kernel*: an object with
     the time at which an arrival acts (identity, or the next grid point).
 ``advance(state, t0, t1, arrivals, spikes, counters)``
     integrate every cell from ``t0`` to ``t1``.
+``widens_spike_buffer`` (optional attribute, default False)
+    True when ``advance`` replaces ``spikes.time_ms`` by a wider array itself
+    whenever a cell emits more spikes than it has columns (so that the spike
+    buffer never overflows); :func:`run_windows` then skips the per-window
+    state snapshot it otherwise keeps to rerun an overflowed window.
 
 Determinism: kernels write only to their own cell's rows; every reduction
 here runs in cell order, so the thread count never changes a bit.
@@ -31,6 +36,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .._numba import jit
 from ..models import model_by_code, state_bounds, state_scales
 from ..network.drive import DriveStream
 
@@ -188,60 +194,145 @@ def expand_csr(sources: np.ndarray, ptr: np.ndarray) -> tuple[np.ndarray, np.nda
 class ArrivalQueue:
     """Arrivals scheduled by emitted spikes, not yet handed to a window.
 
-    Each window's spikes become one chunk of arrivals (time, target, receptor,
-    weight, source, synapse). Chunks are kept until every arrival in them was
-    handed out, so the queue holds at most (max delay / window) chunks.
+    One flat pool of pending arrivals (time, effective time, target, receptor,
+    weight, source, synapse) in push order. :meth:`push` expands a window's
+    spikes over the CSR connectivity straight into the pool (numba);
+    :meth:`pop` moves out every arrival that acts before ``t1`` and compacts
+    the rest, keeping push order. The pool holds about (max delay / window)
+    windows of arrivals and grows by doubling.
+
+    An earlier version kept one set of numpy arrays per window and filtered
+    them with boolean masks on every pop; at a thousand windows a second that
+    Python-level work cost as much as the integration itself.
     """
 
-    def __init__(self, network, effective_time):
+    def __init__(self, network, effective_time, capacity: int = 1024):
         self._net = network
         self._effective_time = effective_time
-        self._chunks: list[dict] = []
+        self._n = 0
+        self._pool = _empty_fields(capacity)
 
     def push(self, cells: np.ndarray, times: np.ndarray) -> None:
         net = self._net
         if cells.size == 0 or net.n_synapses == 0:
             return
-        syn, owner = expand_csr(cells, net.syn_ptr)
-        if syn.size == 0:
+        cells = np.ascontiguousarray(cells, dtype=np.int64)
+        times = np.ascontiguousarray(times, dtype=np.float64)
+        n_new = int((net.syn_ptr[cells + 1] - net.syn_ptr[cells]).sum())
+        if n_new == 0:
             return
-        t_real = times[owner] + net.syn_delay_ms[syn]
-        self._chunks.append(dict(
-            time=t_real,
-            eff=self._effective_time(t_real),
-            cell=net.syn_target[syn],
-            receptor=net.syn_receptor[syn],
-            weight=net.syn_weight[syn],
-            source=cells[owner],
-            syn=syn,
-        ))
+        need = self._n + n_new
+        if need > self._pool["time"].size:
+            grown = _empty_fields(max(need, 2 * self._pool["time"].size))
+            for k in _FIELDS:
+                grown[k][:self._n] = self._pool[k][:self._n]
+            self._pool = grown
+        p = self._pool
+        _expand_spikes(cells, times, net.syn_ptr, net.syn_target, net.syn_delay_ms,
+                       net.syn_weight, net.syn_receptor, self._n,
+                       p["time"], p["cell"], p["receptor"], p["weight"], p["source"], p["syn"])
+        p["eff"][self._n:need] = self._effective_time(p["time"][self._n:need])
+        self._n = need
 
     def pop(self, t1: float) -> dict:
-        """Every queued arrival whose effective time is before ``t1``."""
-        taken, kept = [], []
-        for ch in self._chunks:
-            m = ch["eff"] < t1
-            if m.all():
-                taken.append(ch)
-            elif m.any():
-                taken.append({k: v[m] for k, v in ch.items()})
-                kept.append({k: v[~m] for k, v in ch.items()})
-            else:
-                kept.append(ch)
-        self._chunks = kept
-        return _concat(taken)
+        """Every queued arrival whose effective time is before ``t1``, in push order."""
+        p = self._pool
+        taken = _empty_fields(0)
+        if self._n == 0:
+            return taken
+        n_taken, self._n = _split_pool(self._n, float(t1), p["eff"], p["time"], p["cell"],
+                                       p["receptor"], p["weight"], p["source"], p["syn"])
+        # _split_pool moved the taken entries to the end of the used part, after the kept ones.
+        lo = self._n
+        return {k: p[k][lo:lo + n_taken].copy() for k in _FIELDS}
 
     def __len__(self) -> int:
-        return sum(ch["time"].size for ch in self._chunks)
+        return self._n
 
 
 _FIELDS = ("time", "eff", "cell", "receptor", "weight", "source", "syn")
 _DTYPES = (np.float64, np.float64, np.int64, np.int64, np.float64, np.int64, np.int64)
 
 
+def _empty_fields(n: int) -> dict:
+    return {k: np.empty(n, dtype=d) for k, d in zip(_FIELDS, _DTYPES)}
+
+
+@jit
+def _expand_spikes(cells, times, ptr, target, delay, weight, receptor, at,
+                   o_time, o_cell, o_rec, o_w, o_src, o_syn):
+    """Write the arrivals of spikes (cells[k], times[k]) into the o_* arrays from ``at`` on.
+
+    Order: spike by spike, each source's synapses in CSR order (what
+    :func:`expand_csr` lists).
+    """
+    j = at
+    for k in range(cells.size):
+        c = cells[k]
+        for s in range(ptr[c], ptr[c + 1]):
+            o_time[j] = times[k] + delay[s]
+            o_cell[j] = target[s]
+            o_rec[j] = receptor[s]
+            o_w[j] = weight[s]
+            o_src[j] = c
+            o_syn[j] = s
+            j += 1
+
+
+@jit
+def _split_pool(n, t1, eff, time, cell, rec, w, src, syn):
+    """Reorder pool[:n] into kept (eff >= t1) then taken (eff < t1), each in its old order.
+
+    Returns (n_taken, n_kept).
+    """
+    n_taken = 0
+    for j in range(n):
+        if eff[j] < t1:
+            n_taken += 1
+    if n_taken == 0:
+        return 0, n
+    t_eff = np.empty(n_taken)
+    t_time = np.empty(n_taken)
+    t_cell = np.empty(n_taken, dtype=np.int64)
+    t_rec = np.empty(n_taken, dtype=np.int64)
+    t_w = np.empty(n_taken)
+    t_src = np.empty(n_taken, dtype=np.int64)
+    t_syn = np.empty(n_taken, dtype=np.int64)
+    kept = 0
+    m = 0
+    for j in range(n):
+        if eff[j] < t1:
+            t_eff[m] = eff[j]
+            t_time[m] = time[j]
+            t_cell[m] = cell[j]
+            t_rec[m] = rec[j]
+            t_w[m] = w[j]
+            t_src[m] = src[j]
+            t_syn[m] = syn[j]
+            m += 1
+        else:
+            eff[kept] = eff[j]
+            time[kept] = time[j]
+            cell[kept] = cell[j]
+            rec[kept] = rec[j]
+            w[kept] = w[j]
+            src[kept] = src[j]
+            syn[kept] = syn[j]
+            kept += 1
+    for m in range(n_taken):
+        eff[kept + m] = t_eff[m]
+        time[kept + m] = t_time[m]
+        cell[kept + m] = t_cell[m]
+        rec[kept + m] = t_rec[m]
+        w[kept + m] = t_w[m]
+        src[kept + m] = t_src[m]
+        syn[kept + m] = t_syn[m]
+    return n_taken, kept
+
+
 def _concat(chunks: list[dict]) -> dict:
     if not chunks:
-        return {k: np.empty(0, dtype=d) for k, d in zip(_FIELDS, _DTYPES)}
+        return _empty_fields(0)
     if len(chunks) == 1:
         return chunks[0]
     return {k: np.concatenate([c[k] for c in chunks]) for k in _FIELDS}
@@ -254,8 +345,12 @@ class DriveFeed:
         self._stream = DriveStream(network)
         self._effective_time = effective_time
         self._carry = _concat([])
+        # A network without drive skips the stream's per-window work entirely.
+        self._none = not network.poisson and network.events.time_ms.size == 0
 
     def take(self, t0: float, t1: float) -> dict:
+        if self._none:
+            return self._carry
         time, cell, receptor, weight, source = self._stream.take(t0, t1)
         new = dict(time=time, eff=self._effective_time(time), cell=cell, receptor=receptor,
                    weight=weight, source=source,
@@ -266,18 +361,52 @@ class DriveFeed:
         return {k: v[m] for k, v in merged.items()}
 
 
+@jit
+def _arrival_order(cell, time, source, syn, n_cells):
+    """Permutation sorting arrivals by (cell, time, source, synapse), stable; and the cell pointer.
+
+    A counting sort by cell, then an insertion sort inside each cell: a cell
+    gets a handful of arrivals per window, already nearly in order.
+    """
+    n = cell.size
+    ptr = np.zeros(n_cells + 1, dtype=np.int64)
+    for j in range(n):
+        ptr[cell[j] + 1] += 1
+    for c in range(n_cells):
+        ptr[c + 1] += ptr[c]
+    pos = ptr[:-1].copy()
+    order = np.empty(n, dtype=np.int64)
+    for j in range(n):
+        order[pos[cell[j]]] = j
+        pos[cell[j]] += 1
+    for c in range(n_cells):
+        for a in range(ptr[c] + 1, ptr[c + 1]):
+            x = order[a]
+            b = a - 1
+            while b >= ptr[c]:
+                y = order[b]
+                if time[y] > time[x] or (time[y] == time[x] and (
+                        source[y] > source[x] or (source[y] == source[x] and syn[y] > syn[x]))):
+                    order[b + 1] = y
+                    b -= 1
+                else:
+                    break
+            order[b + 1] = x
+    return order, ptr
+
+
 def window_arrivals(n_cells: int, parts: list[dict]) -> WindowArrivals:
     """Merge arrival sets and sort them per cell by (time, source, synapse)."""
     a = _concat([p for p in parts if p["time"].size])
-    order = np.lexsort((a["syn"], a["source"], a["time"], a["cell"]))
-    cell = a["cell"][order]
-    ptr = np.zeros(n_cells + 1, dtype=np.int64)
-    np.cumsum(np.bincount(cell, minlength=n_cells), out=ptr[1:])
+    order, ptr = _arrival_order(np.ascontiguousarray(a["cell"], dtype=np.int64),
+                                np.ascontiguousarray(a["time"], dtype=np.float64),
+                                np.ascontiguousarray(a["source"], dtype=np.int64),
+                                np.ascontiguousarray(a["syn"], dtype=np.int64), n_cells)
     return WindowArrivals(
         ptr=ptr,
-        time_ms=np.ascontiguousarray(a["eff"][order]),
-        receptor=np.ascontiguousarray(a["receptor"][order]),
-        weight=np.ascontiguousarray(a["weight"][order]),
+        time_ms=a["eff"][order],
+        receptor=a["receptor"][order],
+        weight=a["weight"][order],
     )
 
 
@@ -345,16 +474,21 @@ def run_windows(network, kernel, t_stop_ms: float, state: CellState | None = Non
     status, message, t_reached = "ok", "", float(edges[-1])
     wall = 0.0
     cap = spike_capacity
+    # A kernel that widens the spike buffer itself never needs the window rerun,
+    # so the per-window copy of the whole state is skipped.
+    self_widening = getattr(kernel, "widens_spike_buffer", False)
     for k in range(edges.size - 1):
         t0, t1 = float(edges[k]), float(edges[k + 1])
         arrivals = window_arrivals(n, [queue.pop(t1), drive.take(t0, t1)])
-        snap = state.snapshot()
-        counters_before = counters.copy()
+        if not self_widening:
+            snap = state.snapshot()
+            counters_before = counters.copy()
         while True:
             spikes = SpikeBuffer.empty(n, cap)
             tic = _time.perf_counter()
             kernel.advance(state, t0, t1, arrivals, spikes, counters)
             wall += _time.perf_counter() - tic
+            cap = max(cap, spikes.capacity)  # a self-widening kernel may have widened it
             if not spikes.overflowed():
                 break
             cap = max(2 * cap, int(spikes.count.max()) + 1)

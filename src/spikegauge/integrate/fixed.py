@@ -30,7 +30,7 @@ from ..models.base import P_IEXT, P_TREF, P_VRESET, P_VTH, RECEPTOR_CURRENT
 from ..models.kernels import reset, rhs
 from .crossing import (CROSS_HERMITE, CROSS_LINEAR, CROSS_STEP, CROSSING_CODES,
                        hermite_first_crossing, hermite_value, linear_crossing)
-from .engine import (C_ARRIVALS, C_NEWTON, C_RHS, C_STEPS, DIV_BOUNDS, DIV_NEWTON)
+from .engine import (C_ARRIVALS, C_NEWTON, C_RHS, C_STEPS, DIV_BOUNDS, DIV_NEWTON, N_COUNTERS)
 from .steppers import STEPPER_CODES, fixed_step
 
 SNAP_MS = 1e-9
@@ -74,16 +74,25 @@ def _in_bounds(y, n, lower, upper):
 
 @jit
 def _fixed_cell(code, y, p, refr0, n, st0, st1, dt, stepper, crossing, grid,
-                at, ar, aw, a_lo, a_hi, spk, cnt, lower, upper, scale, rstate, k, J, ncount):
-    """Advance one cell over steps st0..st1-1. Returns (refr, n_spikes, div_time, div_code)."""
+                at, ar, aw, a_lo, a_hi, spk, row, cap, cnt, lower, upper, scale, rstate,
+                f0, f1, f2, f3, ys, y0, f6, f7, J, ncount):
+    """Advance one cell over steps st0..st1-1.
+
+    ``y``, ``p``, ``lower``, ``upper``, ``scale``, ``cnt`` and the stage arrays are
+    the calling thread's own 1-D copies of the cell's rows; spikes go to
+    ``spk[row, :cap]`` (only the first ``cap`` are stored, all are counted).
+
+    Returns (refr, n_spikes, div_time, div_code).
+    """
     a = a_lo
     nsp = 0
-    cap = spk.size
     refr = refr0
     vth = p[P_VTH]
     vreset = p[P_VRESET]
     has_reset = vreset == vreset
     tref = p[P_TREF]
+    hermite = crossing == CROSS_HERMITE
+    interpolate = crossing != CROSS_STEP
     have_f = False
     f_clamped = False
     for st in range(st0, st1):
@@ -117,16 +126,18 @@ def _fixed_cell(code, y, p, refr0, n, st0, st1, dt, stepper, crossing, grid,
                 have_f = False
             h = t_end - t
             v_old = y[0]
-            for s in range(n):
-                k[5, s] = y[s]
-            if crossing == CROSS_HERMITE and not have_f:
-                rhs(code, y, p, clamped, k[0])
-                cnt[C_RHS] += 1
-                have_f = True
-            if crossing == CROSS_HERMITE:
+            if interpolate:
                 for s in range(n):
-                    k[6, s] = k[0, s]
-            nf = fixed_step(stepper, code, y, p, clamped, h, n, k, have_f, scale, J, ncount)
+                    y0[s] = y[s]
+            if hermite:
+                if not have_f:
+                    rhs(code, y, p, clamped, f0)
+                    cnt[C_RHS] += 1
+                    have_f = True
+                for s in range(n):
+                    f6[s] = f0[s]
+            nf = fixed_step(stepper, code, y, p, clamped, h, n, f0, f1, f2, f3, ys, y0, have_f,
+                            scale, J, ncount)
             have_f = False
             if nf < 0:
                 return refr, nsp, t_end, DIV_NEWTON
@@ -134,12 +145,12 @@ def _fixed_cell(code, y, p, refr0, n, st0, st1, dt, stepper, crossing, grid,
             cnt[C_RHS] += nf
             th = -1.0
             if not clamped and v_old < vth:
-                if crossing == CROSS_HERMITE:
-                    rhs(code, y, p, clamped, k[7])
+                if hermite:
+                    rhs(code, y, p, clamped, f7)
                     cnt[C_RHS] += 1
-                    th = hermite_first_crossing(v_old, y[0], k[6, 0], k[7, 0], h, vth)
+                    th = hermite_first_crossing(v_old, y[0], f6[0], f7[0], h, vth)
                     for s in range(n):
-                        k[0, s] = k[7, s]
+                        f0[s] = f7[s]
                     have_f = True
                     f_clamped = clamped
                 elif y[0] >= vth:
@@ -147,24 +158,25 @@ def _fixed_cell(code, y, p, refr0, n, st0, st1, dt, stepper, crossing, grid,
             if th >= 0.0:
                 ts = t_end if crossing == CROSS_STEP else t + th * h
                 if nsp < cap:
-                    spk[nsp] = ts
+                    spk[row, nsp] = ts
                 nsp += 1
                 if has_reset:
                     if crossing == CROSS_LINEAR:
                         for s in range(n):
-                            y[s] = k[5, s] + th * (y[s] - k[5, s])
-                    elif crossing == CROSS_HERMITE:
+                            y[s] = y0[s] + th * (y[s] - y0[s])
+                    elif hermite:
                         for s in range(n):
-                            y[s] = hermite_value(k[5, s], y[s], k[6, s], k[7, s], h, th)
+                            y[s] = hermite_value(y0[s], y[s], f6[s], f7[s], h, th)
                     reset(code, y, p)
                     have_f = False
                     if tref > 0.0:
                         refr = _snap(ts + tref, dt)
-                    if crossing != CROSS_STEP and ts < t_end:
+                    if interpolate and ts < t_end:
                         t = ts
                         continue
-            if not _in_bounds(y, n, lower, upper):
-                return refr, nsp, t_end, DIV_BOUNDS
+            for s in range(n):
+                if not (lower[s] <= y[s] <= upper[s]):  # NaN fails both comparisons
+                    return refr, nsp, t_end, DIV_BOUNDS
             t = t_end
     return refr, nsp, np.inf, 0
 
@@ -173,26 +185,78 @@ def _fixed_cell(code, y, p, refr0, n, st0, st1, dt, stepper, crossing, grid,
 def _fixed_window(code, Y, P, refr, div_time, div_code, lower, upper, scale, nst,
                   st0, st1, dt, stepper, crossing, grid,
                   arr_ptr, arr_time, arr_recep, arr_weight,
-                  spk_count, spk_time, counters, rstate, n_chunks):
+                  spk_count, spk_time, counters, rstate, n_chunks, redo, only_redo):
+    """Advance every live cell over steps st0..st1-1 (cells in parallel chunks).
+
+    Each thread copies a cell's rows into its own 1-D scratch, advances the
+    copy and writes it back: no thread touches another's cells, and no views
+    of shared arrays are taken in the hot loop (their reference counts are
+    shared between threads and cost more than a step of a LIF cell).
+
+    A cell that emits more spikes than ``spk_time`` has columns is not written
+    back: ``redo[i]`` is set to 1 and ``spk_count[i]`` to its spike count, so
+    the caller can widen the buffer and rerun only those cells
+    (``only_redo=True`` advances just the cells with ``redo[i] == 1``). Cells
+    are independent inside a window, so the rerun gives what a rerun of the
+    whole window would.
+    """
     n_cells = code.size
     width = Y.shape[1]
+    pwidth = P.shape[1]
+    cap = spk_time.shape[1]
     for c in numba.prange(n_chunks):
         lo = c * n_cells // n_chunks
         hi = (c + 1) * n_cells // n_chunks
-        k = np.empty((8, width))
+        y = np.empty(width)
+        p = np.empty(pwidth)
+        lo_b = np.empty(width)
+        up_b = np.empty(width)
+        sc = np.empty(width)
+        f0 = np.empty(width)
+        f1 = np.empty(width)
+        f2 = np.empty(width)
+        f3 = np.empty(width)
+        ys = np.empty(width)
+        y0 = np.empty(width)
+        f6 = np.empty(width)
+        f7 = np.empty(width)
         J = np.empty((width, width))
         ncount = np.zeros(1, dtype=np.int64)
+        cnt = np.zeros(N_COUNTERS, dtype=np.int64)
         for i in range(lo, hi):
             if div_time[i] < np.inf:
                 continue
+            if only_redo and redo[i] != 1:
+                continue
+            n = nst[i]
+            for s in range(width):
+                y[s] = Y[i, s]
+                lo_b[s] = lower[i, s]
+                up_b[s] = upper[i, s]
+                sc[s] = scale[i, s]
+            for s in range(pwidth):
+                p[s] = P[i, s]
+            for j in range(N_COUNTERS):
+                cnt[j] = 0
             ncount[0] = 0
             r, nsp, tdiv, dcode = _fixed_cell(
-                code[i], Y[i], P[i], refr[i], nst[i], st0, st1, dt, stepper, crossing, grid,
+                code[i], y, p, refr[i], n, st0, st1, dt, stepper, crossing, grid,
                 arr_time, arr_recep, arr_weight, arr_ptr[i], arr_ptr[i + 1],
-                spk_time[i], counters[i], lower[i], upper[i], scale[i], rstate, k, J, ncount)
+                spk_time, i, cap, cnt, lo_b, up_b, sc, rstate,
+                f0, f1, f2, f3, ys, y0, f6, f7, J, ncount)
+            spk_count[i] = nsp
+            if nsp > cap:
+                redo[i] = 1                  # state left at the window start
+                continue
+            redo[i] = 0
+            for s in range(width):
+                Y[i, s] = y[s]
+            for s in range(pwidth):
+                P[i, s] = p[s]
+            for j in range(N_COUNTERS):
+                counters[i, j] += cnt[j]
             counters[i, C_NEWTON] += ncount[0]
             refr[i] = r
-            spk_count[i] = nsp
             if dcode != 0:
                 div_time[i] = tdiv
                 div_code[i] = dcode
@@ -200,6 +264,9 @@ def _fixed_window(code, Y, P, refr, div_time, div_code, lower, upper, scale, nst
 
 class FixedStepKernel:
     """Window kernel of the fixed-step strategy (see :mod:`spikegauge.integrate.engine`)."""
+
+    widens_spike_buffer = True
+    """:meth:`advance` reruns only the cells that overflow the spike buffer, on a wider one."""
 
     def __init__(self, network, dt_ms: float, stepper: str, crossing: str, delivery: str):
         if stepper not in STEPPER_CODES:
@@ -241,8 +308,19 @@ class FixedStepKernel:
     def advance(self, state, t0, t1, arrivals, spikes, counters):
         st0 = int(round(t0 / self.dt))
         st1 = int(round(t1 / self.dt))
-        _fixed_window(state.code, state.y, state.p, state.refractory_until, state.div_time,
-                      state.div_code, state.lower, state.upper, state.scale, state.n_states,
-                      st0, st1, self.dt, self.stepper, self.crossing, self.grid,
-                      arrivals.ptr, arrivals.time_ms, arrivals.receptor, arrivals.weight,
-                      spikes.count, spikes.time_ms, counters, self.rstate, self.n_chunks)
+        redo = np.zeros(state.code.size, dtype=np.int8)
+        only_redo = False
+        while True:
+            _fixed_window(state.code, state.y, state.p, state.refractory_until, state.div_time,
+                          state.div_code, state.lower, state.upper, state.scale, state.n_states,
+                          st0, st1, self.dt, self.stepper, self.crossing, self.grid,
+                          arrivals.ptr, arrivals.time_ms, arrivals.receptor, arrivals.weight,
+                          spikes.count, spikes.time_ms, counters, self.rstate, self.n_chunks,
+                          redo, only_redo)
+            if not redo.any():
+                return
+            # Widen the spike buffer and rerun only the cells that overflowed it.
+            wider = np.empty((spikes.count.size, max(2 * spikes.capacity, int(spikes.count.max()))))
+            wider[:, :spikes.capacity] = spikes.time_ms
+            spikes.time_ms = wider
+            only_redo = True

@@ -5,16 +5,21 @@ right-hand-side evaluations it made. Synaptic states are ordinary states here,
 so every stage sees them at the stage time: a fourth-order stepper stays fourth
 order in a network (freezing them over a step would make it first order).
 
-``k`` is scratch of shape ``(8, n)``: rows 0-3 stage derivatives, row 4 a
-stage state, rows 5-7 free for the caller. Row 0 may hold ``f(y)`` already
-(``have_f0=True``): the driver caches it from the crossing check of the
-previous step, so Hermite crossing costs no extra evaluation per step.
+Scratch comes as separate 1-D arrays, each at least ``n`` long: ``f0``..``f3``
+stage derivatives, ``ys`` a stage state, ``y0`` the state at the step start
+(written by backward Euler only). Separate 1-D arrays rather than rows of one
+2-D array, because every row view taken in a hot loop costs a reference-count
+update, and those updates were a large part of the per-step cost. ``f0`` may
+hold ``f(y)`` already (``have_f0=True``): the driver caches it from the
+crossing check of the previous step, so Hermite crossing costs no extra
+evaluation per step.
 
 Codes (runtime, so one compiled kernel serves every stepper):
 """
+import numba
 import numpy as np
 
-from .._numba import jit
+from .._numba import inline_jit, jit
 from ..models.kernels import jac, rhs, split
 
 EULER = 0
@@ -39,64 +44,77 @@ def phi1(z):
     return np.expm1(z) / z
 
 
-@jit
-def fixed_step(stepper, code, y, p, clamped, h, n, k, have_f0, scale, J, newton_count):
+@inline_jit
+def fixed_step(stepper, code, y, p, clamped, h, n, f0, f1, f2, f3, ys, y0, have_f0, scale, J,
+               newton_count):
     """Advance one cell's state ``y[:n]`` over ``h`` ms with the given stepper.
 
     Returns the number of right-hand-side evaluations, or -1 when the Newton
     iteration of backward Euler failed (``y`` is then left at the last iterate).
     ``newton_count[0]`` is incremented by the Newton iterations made.
+
+    Inlined into its caller: as a separate function, the reference counts of
+    its dozen array arguments cost more than a whole step of a LIF cell.
     """
     nf = 0
+    if stepper == BACKWARD_EULER:
+        return _backward_euler(code, y, p, clamped, h, n, f0, f1, y0, have_f0, scale, J,
+                               newton_count)
     if stepper == EXPEULER:
-        a = k[0]
-        b = k[1]
-        split(code, y, p, clamped, a, b)
+        split(code, y, p, clamped, f0, f1)
         for s in range(n):
-            y[s] += h * (a[s] + b[s] * y[s]) * phi1(b[s] * h)
+            y[s] += h * (f0[s] + f1[s] * y[s]) * phi1(f1[s] * h)
         return 1
     if not have_f0:
-        rhs(code, y, p, clamped, k[0])
+        rhs(code, y, p, clamped, f0)
         nf += 1
     if stepper == EULER:
         for s in range(n):
-            y[s] += h * k[0, s]
+            y[s] += h * f0[s]
         return nf
     if stepper == RK2:
         # Heun's method (explicit trapezoid): the midpoint rule is the other common
         # choice; Heun's endpoint stage also serves the error-free reuse of f.
         for s in range(n):
-            k[4, s] = y[s] + h * k[0, s]
-        rhs(code, k[4], p, clamped, k[1])
+            ys[s] = y[s] + h * f0[s]
+        rhs(code, ys, p, clamped, f1)
         for s in range(n):
-            y[s] += 0.5 * h * (k[0, s] + k[1, s])
+            y[s] += 0.5 * h * (f0[s] + f1[s])
         return nf + 1
-    if stepper == RK4:
-        for s in range(n):
-            k[4, s] = y[s] + 0.5 * h * k[0, s]
-        rhs(code, k[4], p, clamped, k[1])
-        for s in range(n):
-            k[4, s] = y[s] + 0.5 * h * k[1, s]
-        rhs(code, k[4], p, clamped, k[2])
-        for s in range(n):
-            k[4, s] = y[s] + h * k[2, s]
-        rhs(code, k[4], p, clamped, k[3])
-        for s in range(n):
-            y[s] += h / 6.0 * (k[0, s] + 2.0 * k[1, s] + 2.0 * k[2, s] + k[3, s])
-        return nf + 3
-    # Backward Euler: Newton on G(z) = z - y - h f(z) = 0 from the explicit Euler guess.
+    # RK4 (classic)
     for s in range(n):
-        k[5, s] = y[s]                    # y at the step start
-        y[s] = y[s] + h * k[0, s]         # initial iterate
+        ys[s] = y[s] + 0.5 * h * f0[s]
+    rhs(code, ys, p, clamped, f1)
+    for s in range(n):
+        ys[s] = y[s] + 0.5 * h * f1[s]
+    rhs(code, ys, p, clamped, f2)
+    for s in range(n):
+        ys[s] = y[s] + h * f2[s]
+    rhs(code, ys, p, clamped, f3)
+    for s in range(n):
+        y[s] += h / 6.0 * (f0[s] + 2.0 * f1[s] + 2.0 * f2[s] + f3[s])
+    return nf + 3
+
+
+@jit
+def _backward_euler(code, y, p, clamped, h, n, f0, f1, y0, have_f0, scale, J, newton_count):
+    """Backward Euler: Newton on G(z) = z - y - h f(z) = 0 from the explicit Euler guess."""
+    nf = 0
+    if not have_f0:
+        rhs(code, y, p, clamped, f0)
+        nf += 1
+    for s in range(n):
+        y0[s] = y[s]                      # y at the step start
+        y[s] = y[s] + h * f0[s]           # initial iterate
+    A = np.empty((n, n))
+    r = np.empty(n)
     for it in range(NEWTON_MAX_ITERS):
-        rhs(code, y, p, clamped, k[1])
+        rhs(code, y, p, clamped, f1)
         nf += 1
         jac(code, y, p, clamped, J)
         newton_count[0] += 1
-        A = np.empty((n, n))
-        r = np.empty(n)
         for s in range(n):
-            r[s] = -(y[s] - k[5, s] - h * k[1, s])
+            r[s] = -(y[s] - y0[s] - h * f1[s])
             for q in range(n):
                 A[s, q] = -h * J[s, q]
             A[s, s] += 1.0
