@@ -364,7 +364,10 @@ class _Parser:
     # -- sections -------------------------------------------------------------
 
     def scenario(self, raw: dict, src: Path | None, text: str) -> Scenario:
-        self.keys("", raw, ("scenario", "integration", "group", "pathway", "drive"), ("scenario", "group"))
+        # A [sweep] table belongs to the profile (spikegauge.profile.sweep reads and checks it);
+        # a run of the scenario ignores it.
+        self.keys("", raw, ("scenario", "integration", "group", "pathway", "drive", "sweep"),
+                  ("scenario", "group"))
         sc = raw["scenario"]
         self.keys("scenario", sc, ("name", "duration_ms", "seed", "max_memory_gb"),
                   ("name", "duration_ms", "seed"))

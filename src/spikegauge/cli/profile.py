@@ -1,0 +1,65 @@
+"""``spikegauge profile``: reference, sensitivity ladder and sweep of one scenario."""
+from __future__ import annotations
+
+import click
+
+from .main import cli
+
+
+class _Bar:
+    """Adapts the profile's progress calls to a click progress bar."""
+
+    def __init__(self, quiet: bool):
+        self.quiet = quiet
+        self.bar = None
+
+    def total(self, n: int):
+        if self.quiet:
+            return
+        if self.bar is None:
+            self.bar = click.progressbar(length=n, label="points", show_eta=True, show_pos=True,
+                                         item_show_func=lambda item: item, file=click.get_text_stream("stderr"))
+            self.bar.__enter__()
+        else:
+            self.bar.length = n
+
+    def step(self, label: str):
+        if self.bar is not None:
+            self.bar.update(1, current_item=label)
+
+    def close(self):
+        if self.bar is not None:
+            self.bar.__exit__(None, None, None)
+
+
+@cli.command()
+@click.argument("scenario", type=click.Path(dir_okay=False))
+@click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False),
+              help="Profile folder (results.csv, profile.json, points/).")
+@click.option("--sweep", "sweep_file", type=click.Path(dir_okay=False),
+              help="Sweep file with a [sweep] table (overrides the scenario's and the default).")
+@click.option("--quick", is_flag=True, help="A small sweep (8 points) for smoke tests.")
+@click.option("--seeds", default=1, show_default=True, type=int,
+              help="Network and drive realisations (seeds seed, seed+1, ...).")
+@click.option("--jobs", type=int, help="Local worker processes.")
+@click.option("--scheduler", help="Dask scheduler address (runs the points on that cluster).")
+@click.option("--target-jitter-ms", default=0.1, show_default=True, type=float,
+              help="Accuracy target: RMS spike-time jitter (ms).")
+@click.option("--target-mismatch-frac", default=0.01, show_default=True, type=float,
+              help="Accuracy target: missed + extra spikes as a fraction of the reference's.")
+@click.option("--fresh", is_flag=True, help="Recompute points already stored.")
+@click.option("--quiet", is_flag=True, help="No progress bar.")
+def profile(scenario, out_dir, sweep_file, quick, seeds, jobs, scheduler, target_jitter_ms,
+            target_mismatch_frac, fresh, quiet):
+    """Run the reference, the sensitivity ladder and the sweep of SCENARIO; write the profile."""
+    from ..profile import run_profile
+    from ..profile.summary import profile_text
+
+    bar = _Bar(quiet)
+    try:
+        doc = run_profile(scenario, out_dir, sweep_file=sweep_file, quick=quick, seeds=seeds, jobs=jobs,
+                          scheduler=scheduler, target_jitter_ms=target_jitter_ms,
+                          target_mismatch_frac=target_mismatch_frac, fresh=fresh, progress=bar)
+    finally:
+        bar.close()
+    click.echo(profile_text(doc))

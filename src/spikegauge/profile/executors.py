@@ -1,0 +1,211 @@
+"""Where the points of a profile run: in this process, in local processes, or on Dask.
+
+Every executor runs :func:`execute_task` on plain-dict tasks and yields
+``(index, Run)`` as runs finish, in any order; the caller stores them and
+sorts its table by index, so the order of completion never shows in a
+result. A task carries the scenario text, not a path to shared state, so a
+Dask cluster needs no shared file system (files the scenario itself names
+must be readable on the workers).
+
+Compilation happens once per worker process: kernels are cached on disk
+(``cache=True``) and each process keeps its compiled dispatchers, and the
+engine reports compilation time apart from ``wall_s``.
+"""
+from __future__ import annotations
+
+import dataclasses
+import os
+import re
+import threading
+from concurrent.futures import ProcessPoolExecutor, as_completed
+from multiprocessing import get_context
+
+import numpy as np
+import pandas as pd
+
+from ..errors import InputError
+from ..runs import Run
+
+_NETWORKS: dict = {}
+# numba's default threading layer does not allow parallel kernels launched from two
+# threads at once (a Dask worker with several threads would do that); one run at a time
+# per process, each using all of the process's numba threads.
+_RUN_LOCK = threading.Lock()
+
+
+def _network(task: dict):
+    from ..network import build_network
+    from ..scenario import parse_scenario
+
+    key = (task["scenario_digest"], task["seed"])
+    if key not in _NETWORKS:
+        scen = parse_scenario(task["scenario_text"], source=task["scenario_source"])
+        _NETWORKS.clear()  # one scenario and seed at a time is what a profile needs
+        _NETWORKS[key] = build_network(dataclasses.replace(scen, seed=int(task["seed"])))
+    return _NETWORKS[key]
+
+
+def execute_task(task: dict) -> Run:
+    """Run one point. An error inside the run is a ``failed`` run, never an exception.
+
+    Parameters
+    ----------
+    task : dict
+        ``scenario_text``, ``scenario_source``, ``scenario_digest``, ``seed``,
+        ``settings`` (resolved), ``probe`` (dict or None), ``record_steps``
+        (list of cells or None), ``threads`` (int or None).
+    """
+    from ..simulation import simulate
+    from .reference import apply_probe
+
+    with _RUN_LOCK:
+        net = None
+        try:
+            net = _network(task)
+            if task.get("probe"):
+                net = apply_probe(net, task["probe"])
+            s = task["settings"]
+            run = simulate(net, strategy=s["strategy"], stepper=s.get("stepper"), dt_ms=s.get("dt_ms"),
+                           crossing=s.get("crossing"), delivery=s.get("delivery"), rtol=s.get("rtol"),
+                           atol=s.get("atol"), threads=task.get("threads"),
+                           record_steps=task.get("record_steps"))
+        except Exception as exc:  # a failing point is a row, not a crash of the sweep
+            run = failed_run(net, task, error_message(exc))
+    run.meta.update(scenario_digest=task["scenario_digest"], scenario_text=task["scenario_text"],
+                    seed=int(task["seed"]),
+                    probe=task.get("probe"), scenario_name=task.get("scenario_name"))
+    return run
+
+
+_ANSI = re.compile(r"\x1b\[[0-9;]*m")
+MAX_MESSAGE = 400
+
+
+def error_message(exc: BaseException) -> str:
+    """One line naming the error: its type and first line, and the innermost error
+    line when the text nests several (numba's typing errors do)."""
+    lines = [ln.strip() for ln in _ANSI.sub("", str(exc)).splitlines() if ln.strip()]
+    msg = f"{type(exc).__name__}: {lines[0] if lines else ''}"
+    inner = [ln for ln in lines[1:] if re.match(r"^[A-Za-z]\w*(Error|Exception): ", ln)]
+    if inner:
+        msg += f" ({inner[0]})"
+    return msg[:MAX_MESSAGE]
+
+
+def failed_run(network, task: dict, message: str) -> Run:
+    """An empty run with status ``failed`` and the error message."""
+    n = int(network.n_cells) if network is not None else 0
+    first = np.asarray(network.group_first) if network is not None else np.zeros(1, np.int64)
+    names = tuple(network.group_names) if network is not None else ()
+    return Run(spikes=pd.DataFrame({"cell": np.empty(0, np.int64), "time_ms": np.empty(0)}),
+               n_cells=n, t_start_ms=0.0, t_stop_ms=0.0, group_names=names, group_first=first,
+               settings=dict(task["settings"]), status="failed", message=message, cost={})
+
+
+class SerialExecutor:
+    """Runs every task in this process, one after the other."""
+
+    description = "serial"
+
+    def threads(self):
+        return None
+
+    def run(self, tasks):
+        for i, task in enumerate(tasks):
+            yield i, execute_task(task)
+
+    def close(self):
+        pass
+
+
+def _init_worker(threads: int):
+    import numba
+
+    numba.set_num_threads(max(1, min(threads, numba.config.NUMBA_NUM_THREADS)))
+
+
+class ProcessExecutor:
+    """Runs tasks in ``jobs`` local worker processes (``--jobs N``).
+
+    Each worker uses ``cpu_count // jobs`` numba threads (at least one), so the
+    processes do not oversubscribe the cores. Workers are started with
+    ``spawn``: numba's thread pool is not safe to fork.
+    """
+
+    def __init__(self, jobs: int):
+        if int(jobs) < 1:
+            raise InputError(f"--jobs: must be at least 1, got {jobs}")
+        self.jobs = int(jobs)
+        self.description = f"{self.jobs} local processes"
+        self._threads = max(1, (os.cpu_count() or 1) // self.jobs)
+        self._pool = None
+
+    def threads(self):
+        return self._threads
+
+    def run(self, tasks):
+        if self._pool is None:
+            self._pool = ProcessPoolExecutor(max_workers=self.jobs, mp_context=get_context("spawn"),
+                                             initializer=_init_worker, initargs=(self._threads,))
+        futures = {self._pool.submit(execute_task, t): i for i, t in enumerate(tasks)}
+        try:
+            for fut in as_completed(futures):
+                yield futures[fut], fut.result()
+        finally:
+            for fut in futures:
+                fut.cancel()
+
+    def close(self):
+        if self._pool is not None:
+            self._pool.shutdown(cancel_futures=True)
+            self._pool = None
+
+
+class DaskExecutor:
+    """Runs tasks on a Dask distributed cluster (``--scheduler ADDRESS``).
+
+    Parameters
+    ----------
+    address : str
+        The scheduler's address, e.g. ``tcp://10.0.0.5:8786``.
+    """
+
+    def __init__(self, address: str):
+        try:
+            from distributed import Client
+        except ImportError:  # pragma: no cover - dask is a declared dependency of the extra
+            raise InputError("--scheduler: needs the 'distributed' package (pip install dask[distributed])") from None
+        try:
+            self._client = Client(address, timeout="20s")
+        except (OSError, TimeoutError, ValueError) as exc:
+            raise InputError(f"--scheduler: cannot reach the Dask scheduler at {address}: {exc}") from None
+        self.description = f"Dask scheduler {address}"
+
+    def threads(self):
+        return None
+
+    def run(self, tasks):
+        from distributed import as_completed as dask_completed
+
+        futures = [self._client.submit(execute_task, t, pure=False) for t in tasks]
+        index = {f.key: i for i, f in enumerate(futures)}
+        try:
+            for fut, run in dask_completed(futures, with_results=True):
+                yield index[fut.key], run
+        finally:
+            for f in futures:
+                f.cancel()
+
+    def close(self):
+        self._client.close()
+
+
+def make_executor(jobs: int | None = None, scheduler: str | None = None):
+    """The executor for ``--jobs`` / ``--scheduler`` (serial when neither is given)."""
+    if jobs is not None and scheduler is not None:
+        raise InputError("--jobs and --scheduler: give one or the other")
+    if scheduler is not None:
+        return DaskExecutor(scheduler)
+    if jobs is not None and int(jobs) > 1:
+        return ProcessExecutor(jobs)
+    return SerialExecutor()

@@ -1,0 +1,191 @@
+"""Turn stored runs into ``results.csv`` and ``profile.json``.
+
+Every sweep point is compared with its seed's reference twice: over the whole
+run (every figure of :func:`spikegauge.analysis.compare`, including the
+population statistics that still mean something past the sensitivity
+horizon) and over the judged window, from the start to the median horizon of
+the target-sized probe, where per-spike figures are meaningful; those carry
+the prefix ``target_``. A point meets the target when its status is ok and,
+within the judged window, its RMS jitter and its missed + extra fraction are
+at most the target's.
+
+``results.csv`` columns (one row per point, in sweep order, seed by seed):
+``point, seed, label, strategy, stepper, dt_ms, crossing, delivery, rtol,
+atol, digest, status, message, t_reached_ms``; cost ``steps, rhs_evals,
+newton_iters, arrivals, rejected_steps, spikes, wall_s, compile_s, work
+(rhs_evals + newton_iters), steps_per_cell_ms, arrivals_per_ms``; target ``target_window_ms,
+target_shift_rms_ms, target_shift_max_abs_ms, target_mismatch_fraction,
+target_missed_fraction, target_extra_fraction, meets_target``; then every
+key of the comparison summary (see :func:`spikegauge.analysis.compare`).
+Only ``wall_s``, ``compile_s`` (and ``timing`` in ``profile.json``) depend
+on the machine.
+"""
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+
+import pandas as pd
+
+from .. import __version__
+from ..analysis import compare
+from ..analysis.comparison import jsonable
+from ..runs import atomic_path
+from .reference import ladder_summary, probe_horizon, reference_uncertainty
+from .sweep import setting_label
+from .verdict import conclusions
+
+COMPARE_OPTIONS = dict(match_window_ms=2.0, tau_ms=5.0)
+"""Options of every comparison of a profile (match window and van Rossum time constant, ms)."""
+WALL_COLUMNS = ("wall_s", "compile_s")
+"""Columns that depend on the machine and the executor."""
+COST_KEYS = ("steps", "rhs_evals", "newton_iters", "arrivals", "rejected_steps", "spikes")
+SETTING_COLUMNS = ("strategy", "stepper", "dt_ms", "crossing", "delivery", "rtol", "atol")
+TARGET_KEYS = ("shift_rms_ms", "shift_max_abs_ms", "mismatch_fraction", "missed_fraction",
+               "extra_fraction")
+MIN_JUDGED_MS = 50.0
+"""Shortest judged window (ms), one agreement window of the horizon analysis, so a
+network that loses agreement at once still has a window to judge jitter in."""
+
+
+def judged_window_ms(ladder: dict, duration_ms: float) -> float:
+    """End of the window per-spike targets are judged over (ms from the start)."""
+    if "shift" not in ladder or ladder["shift"]["median_censored"]:
+        return float(duration_ms)
+    return float(min(duration_ms, max(ladder["shift"]["median_horizon_ms"], MIN_JUDGED_MS)))
+
+
+def _comparison_doc(store, digest, run, ref, ref_digest, window, options):
+    key = dict(options, judged_window_ms=window, reference=ref_digest)
+    cached = store.read_comparison(digest)
+    if cached is not None and cached.get("options") == json.loads(json.dumps(key)):
+        return cached
+    if run.status == "failed":
+        doc = dict(options=key, comparison=None, target=None)
+    else:
+        full = compare(ref, run, t_stop_ms=ref.t_stop_ms, **options)
+        judged = full if window >= ref.t_stop_ms - ref.t_start_ms else \
+            compare(ref, run, t_stop_ms=ref.t_start_ms + window, **options)
+        s = judged.summary
+        target = {k: s[k] for k in TARGET_KEYS}
+        target["n_ref"] = s["n_ref"]
+        doc = jsonable(dict(options=key, comparison=full.to_dict(), target=target))
+    store.write_comparison(digest, doc)
+    return doc
+
+
+def _nan(v):
+    return math.nan if v is None else v
+
+
+def point_row(k, task, run, doc, window, spec) -> dict:
+    """One row of ``results.csv``."""
+    s = task["settings"]
+    row = dict(point=k, seed=task["seed"], label=setting_label(s))
+    row.update({c: s.get(c) for c in SETTING_COLUMNS})
+    row.update(digest=task["digest"], status=run.status, message=run.message,
+               t_reached_ms=run.t_stop_ms)
+    failed = run.status == "failed"
+    for c in COST_KEYS:
+        row[c] = math.nan if failed else run.cost.get(c, math.nan)
+    for c in WALL_COLUMNS:
+        row[c] = math.nan if failed else run.cost.get(c, math.nan)
+    # machine-independent work: a Newton iteration or Rosenbrock linear solve of a point
+    # neuron (2-6 states) costs about one right-hand side (common practice)
+    row["work"] = row["rhs_evals"] + row["newton_iters"]
+    span = run.t_stop_ms - run.t_start_ms
+    row["steps_per_cell_ms"] = row["steps"] / (run.n_cells * span) if span > 0 and not failed else math.nan
+    row["arrivals_per_ms"] = row["arrivals"] / span if span > 0 and not failed else math.nan
+    row["target_window_ms"] = window
+    target = doc["target"] or {}
+    for key in TARGET_KEYS:
+        row[f"target_{key}"] = _nan(target.get(key))
+    jitter, mism = row["target_shift_rms_ms"], row["target_mismatch_fraction"]
+    no_spikes = target.get("n_ref") == 0 and mism == 0
+    row["meets_target"] = bool(run.status == "ok" and mism <= spec.target_mismatch_frac
+                               and (jitter <= spec.target_jitter_ms or no_spikes))
+    summary = (doc["comparison"] or {}).get("summary", {})
+    for key, v in summary.items():
+        if key not in ("n_cells", "t_start_ms", "t_stop_ms") and key not in row:
+            row[key] = _nan(v) if not isinstance(v, (str, bool)) else v
+    return row
+
+
+def _strip_wall(cost: dict) -> dict:
+    return {k: v for k, v in cost.items() if k not in WALL_COLUMNS and k != "cell_steps_per_s"}
+
+
+def evaluate(spec, store, networks, ref_tasks, ref_runs, probe_tasks, point_tasks, by_digest, out_dir) -> dict:
+    """Compare every point with its reference; write ``results.csv``; return the profile document."""
+    references, ladders, rows, points = [], [], [], []
+    k = 0
+    for seed in spec.seeds:
+        runs = ref_runs[seed]
+        ref, ref_digest = runs[-1], ref_tasks[seed][-1]["digest"]
+        unc = reference_uncertainty(runs, spec.target_jitter_ms, spec.target_mismatch_frac,
+                                    **COMPARE_OPTIONS)
+        references.append(dict(seed=seed, settings=[t["settings"] for t in ref_tasks[seed]],
+                               digests=[t["digest"] for t in ref_tasks[seed]], status=ref.status,
+                               message=ref.message, spikes=int(len(ref.spikes)),
+                               mean_rate_hz=ref.mean_rate_hz,
+                               cost=[_strip_wall(r.cost) for r in runs], uncertainty=unc))
+        probes = [t["probe"] for t in probe_tasks[seed]]
+        horizons = [probe_horizon(ref, by_digest[t["digest"]], t["probe"], **COMPARE_OPTIONS)
+                    for t in probe_tasks[seed]]
+        ladder = ladder_summary(probes, horizons)
+        window = judged_window_ms(ladder, ref.t_stop_ms - ref.t_start_ms)
+        ladders.append(dict(seed=seed, probes=ladder, judged_window_ms=window))
+        for task in point_tasks[seed]:
+            run = by_digest[task["digest"]]
+            doc = _comparison_doc(store, task["digest"], run, ref, ref_digest, window, COMPARE_OPTIONS)
+            rows.append(point_row(k, task, run, doc, window, spec))
+            points.append(dict(point=k, seed=seed, label=setting_label(task["settings"]),
+                               digest=task["digest"], status=run.status, message=run.message))
+            k += 1
+    table = pd.DataFrame(rows)
+    write_results_csv(out_dir, table)
+    scen = spec.scenario
+    doc = dict(
+        spikegauge_version=__version__,
+        scenario=dict(name=scen.name, path=str(scen.path) if scen.path else None,
+                      digest=spec.scenario_digest, n_cells=scen.n_cells, duration_ms=scen.duration_ms,
+                      seed=scen.seed, models=spec.model_names),
+        target=dict(jitter_ms=spec.target_jitter_ms, mismatch_frac=spec.target_mismatch_frac),
+        compare_options=COMPARE_OPTIONS,
+        sweep=dict(source=spec.sweep_source, n_settings=len(spec.sweep), n_points=len(rows)),
+        seeds=spec.seeds,
+        references=references,
+        ladder=ladders,
+        points=points,
+    )
+    doc.update(conclusions(table, doc))
+    return jsonable(doc)
+
+
+def write_results_csv(out_dir, table: pd.DataFrame) -> Path:
+    path = Path(out_dir) / "results.csv"
+    with atomic_path(path) as tmp:
+        table.to_csv(tmp, index=False)
+    return path
+
+
+def write_profile_json(out_dir, doc: dict) -> Path:
+    path = Path(out_dir) / "profile.json"
+    with atomic_path(path) as tmp:
+        Path(tmp).write_text(json.dumps(jsonable(doc), indent=1, allow_nan=False))
+    return path
+
+
+def load_results(profile_dir) -> tuple[pd.DataFrame, dict]:
+    """Read ``results.csv`` and ``profile.json`` of a profile folder."""
+    from ..errors import InputError
+
+    d = Path(profile_dir)
+    try:
+        table = pd.read_csv(d / "results.csv", keep_default_na=True)
+        doc = json.loads((d / "profile.json").read_text())
+    except FileNotFoundError as exc:
+        raise InputError(f"{d}: not a profile folder (missing {Path(exc.filename).name}); "
+                         f"run `spikegauge profile` first") from None
+    return table, doc

@@ -1,0 +1,34 @@
+"""Plain-text summary of a profile document (what ``spikegauge profile`` prints)."""
+from __future__ import annotations
+
+
+def _horizon(p: dict) -> str:
+    if p["median_censored"]:
+        return f"> {p['median_horizon_ms']:.4g} ms (agreement never lost in most probes)"
+    return f"{p['median_horizon_ms']:.4g} ms"
+
+
+def profile_text(doc: dict) -> str:
+    """Verdict first, then the reference, the ladder and the point count."""
+    lines = []
+    v = doc.get("verdict")
+    if v:
+        lines.append(f"Verdict: {v['text']}.")
+        lines.append(f"  Why: {v['reason']}.")
+        walls = [f"{s} {c['wall_s']:.3g} s" for s, c in v["cheapest"].items() if c.get("wall_s") is not None]
+        if walls:
+            lines.append(f"  Wall time on this machine (cheapest setting meeting the target): {', '.join(walls)}.")
+    sc = doc["scenario"]
+    lines.append(f"Scenario {sc['name']}: {sc['n_cells']} cells, {sc['duration_ms']:g} ms; "
+                 f"{doc['sweep']['n_points']} points ({doc['sweep']['source']} sweep, "
+                 f"{len(doc['seeds'])} seed(s)).")
+    for ref, lad in zip(doc["references"], doc["ladder"]):
+        u = ref["uncertainty"]
+        lines.append(f"Reference (seed {ref['seed']}, {u['kind']}): {u['message']}.")
+        for kind, p in lad["probes"].items():
+            lines.append(f"  horizon after {kind} probe: {_horizon(p)} (median of {len(p['cells'])} cells)")
+        lines.append(f"  per-spike targets judged over the first {lad['judged_window_ms']:.4g} ms")
+    t = doc.get("timing")
+    if t:
+        lines.append(f"{t['points_computed']} points computed in {t['wall_s']:.1f} s ({t['executor']}).")
+    return "\n".join(lines)

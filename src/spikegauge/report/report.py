@@ -1,0 +1,264 @@
+"""The profile report: ``report.md``, a self-contained ``report.html`` and ``figures/*.png``.
+
+:func:`build_report` reads only what a profile stored (``results.csv``,
+``profile.json``, the points' spikes, step traces and comparisons; the raster
+differences are recomputed from stored spikes), so it never reruns a
+simulation. Every number it prints comes from ``results.csv`` or
+``profile.json`` through :func:`fmt`, so the report and the files agree.
+The verdict and recommendation come first, then the reference and the
+horizons, the tables and the figures.
+"""
+from __future__ import annotations
+
+import base64
+import html
+import io
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..analysis import compare
+from ..profile.results import COMPARE_OPTIONS, load_results
+from ..runs import atomic_path, load_run
+from . import profile_figures as pf
+from .raster_plots import plot_raster_difference
+
+DPI = 110
+
+
+def fmt(x) -> str:
+    """How every number appears in the report: 4 significant digits, NaN as 'n/a'."""
+    if x is None:
+        return "n/a"
+    if isinstance(x, (bool, np.bool_)):
+        return "yes" if x else "no"
+    if isinstance(x, (int, np.integer)):
+        return str(int(x))
+    x = float(x)
+    if not np.isfinite(x):
+        return "n/a"
+    if x == int(x) and abs(x) < 1e15:
+        return str(int(x))
+    return f"{x:.4g}"
+
+
+class _Doc:
+    """Blocks rendered both as Markdown and as HTML."""
+
+    def __init__(self):
+        self.blocks = []
+
+    def h(self, level, text):
+        self.blocks.append(("h", level, text))
+
+    def p(self, text):
+        self.blocks.append(("p", text))
+
+    def table(self, header, rows):
+        self.blocks.append(("table", header, rows))
+
+    def figure(self, name, caption, png: bytes):
+        self.blocks.append(("fig", name, caption, png))
+
+    def markdown(self) -> str:
+        out = []
+        for b in self.blocks:
+            if b[0] == "h":
+                out.append("#" * b[1] + " " + b[2])
+            elif b[0] == "p":
+                out.append(b[1])
+            elif b[0] == "table":
+                out.append("| " + " | ".join(b[1]) + " |")
+                out.append("|" + "---|" * len(b[1]))
+                out += ["| " + " | ".join(r) + " |" for r in b[2]]
+            else:
+                out.append(f"![{b[2]}](figures/{b[1]})\n\n*{b[2]}*")
+            out.append("")
+        return "\n".join(out)
+
+    def html(self, title) -> str:
+        parts = [f"<!DOCTYPE html><html><head><meta charset='utf-8'><title>{html.escape(title)}</title>",
+                 "<style>body{font-family:sans-serif;max-width:1100px;margin:2em auto;line-height:1.4}"
+                 "table{border-collapse:collapse}td,th{border:1px solid #bbb;padding:3px 8px;text-align:left}"
+                 "img{max-width:100%}figcaption{font-style:italic;margin-bottom:1.5em}</style></head><body>"]
+        for b in self.blocks:
+            if b[0] == "h":
+                parts.append(f"<h{b[1]}>{html.escape(b[2])}</h{b[1]}>")
+            elif b[0] == "p":
+                parts.append(f"<p>{html.escape(b[1])}</p>")
+            elif b[0] == "table":
+                parts.append("<table><tr>" + "".join(f"<th>{html.escape(c)}</th>" for c in b[1]) + "</tr>")
+                parts += ["<tr>" + "".join(f"<td>{html.escape(c)}</td>" for c in r) + "</tr>" for r in b[2]]
+                parts.append("</table>")
+            else:
+                data = base64.b64encode(b[3]).decode()
+                parts.append(f"<figure><img alt='{html.escape(b[2])}' src='data:image/png;base64,{data}'>"
+                             f"<figcaption>{html.escape(b[2])}</figcaption></figure>")
+        parts.append("</body></html>")
+        return "\n".join(parts)
+
+
+def _png(fig) -> bytes:
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=DPI)
+    return buf.getvalue()
+
+
+def _horizon_text(p) -> str:
+    bound = "> " if p["median_censored"] else ""
+    return f"{bound}{fmt(p['median_horizon_ms'])} ms"
+
+
+def build_report(profile_dir) -> list[Path]:
+    """Write ``report.md``, ``report.html`` and ``figures/*.png`` into the profile folder.
+
+    Returns the paths written.
+    """
+    d = Path(profile_dir)
+    table, doc = load_results(d)
+    figdir = d / "figures"
+    figdir.mkdir(exist_ok=True)
+    seed0 = doc["seeds"][0]
+    rows = table[table["seed"] == seed0]
+    by_point = table.set_index("point")
+    v = doc["verdict"]
+    rep = _Doc()
+    title = f"Accuracy profile: {doc['scenario']['name']}"
+    rep.h(1, title)
+
+    rep.h(2, "Verdict")
+    rep.p(f"{v['text']}.")
+    rep.p(f"Why: {v['reason']}.")
+    tgt = doc["target"]
+    rep.p(f"Target: RMS jitter <= {fmt(tgt['jitter_ms'])} ms and missed + extra spikes <= "
+          f"{fmt(tgt['mismatch_frac'])} (as a fraction of the reference's) within the judged window.")
+    rec = v.get("recommended")
+    if rec:
+        r = by_point.loc[rec["point"]]
+        rep.p(f"Recommended setting: {r['label']} (point {rec['point']}): RMS jitter {fmt(r['target_shift_rms_ms'])} ms, "
+              f"mismatch {fmt(r['target_mismatch_fraction'])}, work {fmt(r['work'])}, wall {fmt(r['wall_s'])} s.")
+    advice_path = d / "advice.json"
+    if advice_path.is_file():
+        import json
+
+        a = json.loads(advice_path.read_text())
+        p = a["predicted"]
+        rep.p(f"Production advice (advice.json): {a['label']} for {fmt(p['n_cells'])} cells over "
+              f"{fmt(a['run']['duration_s'])} s: predicted {fmt(p['steps'])} cell-steps, wall "
+              f"{fmt(p['wall_s'])} s, memory {fmt(p['memory_bytes'] / 1e9)} GB.")
+    if v["seeds"] > 1:
+        rep.p(f"The verdict held for {v['seeds_held']} of {v['seeds']} seeds.")
+
+    rep.h(2, "Reference and sensitivity horizons")
+    for ref, lad in zip(doc["references"], doc["ladder"]):
+        u = ref["uncertainty"]
+        rep.p(f"Seed {ref['seed']}: reference {u['kind']}; uncertainty: RMS {fmt(u['shift_rms_ms'])} ms, "
+              f"largest {fmt(u['shift_max_abs_ms'])} ms, mismatch {fmt(u['mismatch_fraction'])}; "
+              f"adequate: {fmt(u['adequate'])}. {u['message']}.")
+        rep.table(["probe", "size", "median horizon", "median time to first error", "cells diverged"],
+                  [[k, fmt(p["size"]), _horizon_text(p), f"{fmt(p['median_first_error_ms'])} ms",
+                    f"{p['diverged']} of {len(p['cells'])}"] for k, p in lad["probes"].items()])
+        rep.p(f"Per-spike targets are judged over the first {fmt(lad['judged_window_ms'])} ms.")
+
+    rep.h(2, "Cheapest setting of each strategy that meets the target")
+    header = ["strategy", "setting", "point", "work", "wall (s)", "RMS jitter (ms)", "mismatch",
+              "steps per cell and ms"]
+    trows = []
+    for strategy, c in v["cheapest"].items():
+        r = by_point.loc[c["point"]]
+        trows.append([strategy, r["label"], str(c["point"]), fmt(r["work"]), fmt(r["wall_s"]),
+                      fmt(r["target_shift_rms_ms"]), fmt(r["target_mismatch_fraction"]),
+                      fmt(r["steps_per_cell_ms"])])
+    rep.table(header, trows)
+
+    rep.h(2, "Measured orders")
+    rep.table(["strategy", "stepper", "crossing/delivery", "measured slope", "expected", "source"],
+              [[f["strategy"], f["stepper"], f"{f['crossing']}/{f['delivery']}",
+                f"{fmt(f['slope'])} ± {fmt(f['stderr'])} ({f['n']} points)", fmt(f["expected"]), f["source"]]
+               for f in doc["fits"]])
+    rep.p("Fixed step: slope of log RMS jitter on log dt; adaptive: on log rtol. Only points "
+          "whose spikes all match the reference enter a fit.")
+
+    rep.h(2, "Figures")
+    figures = [("front.png", "Cost-accuracy front: work against RMS jitter (judged window)",
+                pf.plot_front(table, doc, "jitter", "work")),
+               ("front_mismatch.png", "Cost-accuracy front: work against missed + extra fraction",
+                pf.plot_front(table, doc, "mismatch", "work")),
+               ("convergence.png", "Convergence: error against dt and against rtol, fitted slopes",
+                pf.plot_convergence(table, doc))]
+    ref_run = load_run(d / "points" / doc["references"][0]["digests"][-1])
+    ok = rows[rows["status"] == "ok"]
+    fixed = ok[ok["strategy"] == "fixed"].sort_values(["work", "point"])
+    shown = {}
+    if rec:
+        shown["recommended"] = rec["point"]
+    if len(fixed):
+        shown["cheapest fixed step"] = int(fixed.iloc[0]["point"])
+    for name, point in shown.items():
+        r = by_point.loc[point]
+        c = compare(ref_run, load_run(d / "points" / r["digest"]), t_stop_ms=ref_run.t_stop_ms,
+                    **COMPARE_OPTIONS)
+        fig = plot_raster_difference(c)
+        fig.axes[0].set_title(f"Raster difference, {name}: {r['label']}")
+        figures.append((f"raster_{name.replace(' ', '_')}.png",
+                        f"Raster difference against the reference, {name} ({r['label']})", fig))
+    growth = {}
+    picks = list(shown.values()) + [c["point"] for c in v["cheapest"].values()]
+    for point in dict.fromkeys(picks):
+        r = by_point.loc[point]
+        comp = _stored_comparison(d, r["digest"])
+        if comp is not None:
+            growth[r["label"]] = comp["over_time"]
+    if growth:
+        figures.append(("error_growth.png", "Error growth over time with the sensitivity horizons",
+                        pf.plot_error_growth(growth, doc)))
+    for strategy in ("local-adaptive", "global-adaptive"):
+        point = v["cheapest"].get(strategy, {}).get("point")
+        if point is None:
+            cand = ok[ok["strategy"] == strategy]
+            point = int(cand.iloc[0]["point"]) if len(cand) else None
+        if point is None:
+            continue
+        r = by_point.loc[point]
+        run = load_run(d / "points" / r["digest"])
+        if run.step_trace is not None and len(run.step_trace):
+            figures.append((f"steps_{strategy}.png", f"Step sizes of a few cells, {r['label']}",
+                            pf.plot_step_traces(run.step_trace, run.spikes, r["label"])))
+    samples = {}
+    for _, r in ok[ok["strategy"] == "local-adaptive"].iterrows():
+        run = load_run(d / "points" / r["digest"])
+        if run.step_trace is None or not len(run.step_trace):
+            continue
+        st = run.step_trace[run.step_trace["accepted"].astype(bool)]
+        counts = st.groupby("cell").size()
+        span = run.t_stop_ms - run.t_start_ms
+        fired = run.spikes["cell"].value_counts().reindex(counts.index, fill_value=0)
+        samples[r["label"]] = pd.DataFrame({"rate_hz": fired.to_numpy() * 1000.0 / span,
+                                            "steps_per_ms": counts.to_numpy() / span})
+    if samples:
+        figures.append(("steps_vs_rate.png", "Local adaptive: steps per cell against firing rate",
+                        pf.plot_steps_vs_rate(samples)))
+    written = []
+    for name, caption, fig in figures:
+        png = _png(fig)
+        path = figdir / name
+        with atomic_path(path) as tmp:
+            Path(tmp).write_bytes(png)
+        written.append(path)
+        rep.figure(name, caption, png)
+    for name, text in (("report.md", rep.markdown()), ("report.html", rep.html(title))):
+        with atomic_path(d / name) as tmp:
+            Path(tmp).write_text(text, encoding="utf-8")
+        written.append(d / name)
+    return written
+
+
+def _stored_comparison(d: Path, digest: str):
+    import json
+
+    p = d / "points" / digest / "comparison.json"
+    if not p.is_file():
+        return None
+    doc = json.loads(p.read_text())
+    return (doc.get("comparison") or None)
