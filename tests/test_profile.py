@@ -169,7 +169,7 @@ def test_profile_resumes_and_executors_agree(tmp_path):
     assert "Verdict:" in out and "horizon after shift probe" in out
     table = pd.read_csv(a / "results.csv")
     assert list(table["status"]) == ["ok", "ok", "failed", "ok"]
-    assert "grid delivery" in table.loc[2, "message"]
+    assert "smallest delay" in table.loc[2, "message"]
     doc = json.loads((a / "profile.json").read_text())
     assert doc["references"][0]["uncertainty"]["kind"] == "exact"
     assert set(doc["ladder"][0]["probes"]) == {"voltage", "shift", "delete"}

@@ -213,6 +213,7 @@ class _TraceRecorder:
         self.interval = float(interval_ms) if dt is None else max(1, round(interval_ms / dt)) * dt
         self.n_states = int(network.n_states[self.cells].max())
         self.rows: list[np.ndarray] = []
+        self._done: set[int] = set()
         self._kernel = kernel
 
     def times(self, t_stop):
@@ -225,7 +226,8 @@ class _TraceRecorder:
 
     def __call__(self, t0, t1, state):
         r = t1 / self.interval
-        if abs(r - round(r)) <= 1e-9 * max(1.0, r):
+        if abs(r - round(r)) <= 1e-9 * max(1.0, r) and round(r) not in self._done:
+            self._done.add(round(r))
             block = np.column_stack([self.cells, np.full(self.cells.size, t1),
                                      state.y[self.cells, :self.n_states]])
             self.rows.append(block)

@@ -37,6 +37,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .._numba import jit
+from ..errors import ComputationError
 from ..models import model_by_code, state_bounds, state_scales
 from ..network.drive import DriveStream
 
@@ -61,6 +62,9 @@ DIV_MESSAGES = {
     DIV_MIN_STEP: "the step size fell below the minimum step",
     DIV_MAX_STEPS: "the maximum number of steps was exceeded",
 }
+
+EDGE_MERGE_MS = 1e-9
+"""Window edges closer than this are one edge; arrivals this early still count as on time (ms)."""
 
 MAX_WINDOW_MS = 100.0
 """Window length used when the network has no synapses (no delay bounds it)."""
@@ -467,6 +471,8 @@ def run_windows(network, kernel, t_stop_ms: float, state: CellState | None = Non
     if extra_edges is not None:
         extra = np.asarray(extra_edges, dtype=np.float64)
         edges = np.unique(np.concatenate([edges, extra[(extra > 0) & (extra < edges[-1])]]))
+        # Edges a rounding step apart would make empty windows (and duplicate samples).
+        edges = edges[np.concatenate([[True], np.diff(edges) > EDGE_MERGE_MS])]
     queue = ArrivalQueue(network, kernel.effective_time)
     drive = DriveFeed(network, kernel.effective_time)
     counters = np.zeros((n, N_COUNTERS), dtype=np.int64)
@@ -479,7 +485,13 @@ def run_windows(network, kernel, t_stop_ms: float, state: CellState | None = Non
     self_widening = getattr(kernel, "widens_spike_buffer", False)
     for k in range(edges.size - 1):
         t0, t1 = float(edges[k]), float(edges[k + 1])
-        arrivals = window_arrivals(n, [queue.pop(t1), drive.take(t0, t1)])
+        from_network = queue.pop(t1)
+        if from_network["eff"].size and from_network["eff"].min() < t0 - EDGE_MERGE_MS:
+            # Windows longer than the smallest delay would apply such an arrival late.
+            raise ComputationError(
+                f"an arrival due at {from_network['eff'].min():.12g} ms reached the window starting "
+                f"at {t0:.12g} ms: the strategy's windows are longer than the smallest delay")
+        arrivals = window_arrivals(n, [from_network, drive.take(t0, t1)])
         if not self_widening:
             snap = state.snapshot()
             counters_before = counters.copy()

@@ -30,14 +30,16 @@ from ..models.base import P_IEXT, P_TREF, P_VRESET, P_VTH, RECEPTOR_CURRENT
 from ..models.kernels import reset, rhs
 from .crossing import (CROSS_HERMITE, CROSS_LINEAR, CROSS_STEP, CROSSING_CODES,
                        hermite_first_crossing, hermite_value, linear_crossing)
-from .engine import (C_ARRIVALS, C_NEWTON, C_RHS, C_STEPS, DIV_BOUNDS, DIV_NEWTON, N_COUNTERS)
+from .engine import (C_ARRIVALS, C_NEWTON, C_RHS, C_STEPS, DIV_BOUNDS, DIV_MAX_STEPS, DIV_NEWTON,
+                     N_COUNTERS)
 from .steppers import STEPPER_CODES, fixed_step
 
 SNAP_MS = 1e-9
 """A time within this distance of a grid point is taken to be on it (ms)."""
 
-MAX_SUBSTEPS = 10_000
-"""Sub-steps allowed inside one step before the cell is declared diverged."""
+MAX_RESETS_PER_STEP = 10_000
+"""Resets inside one step (runaway firing without a refractory period) before the cell is
+declared diverged; splits at arrivals are bounded by the arrivals and not counted."""
 
 
 def grid_time(time_ms: np.ndarray, dt_ms: float) -> np.ndarray:
@@ -73,10 +75,10 @@ def _in_bounds(y, n, lower, upper):
 
 
 @jit
-def _fixed_cell(code, y, p, refr0, n, st0, st1, dt, stepper, crossing, grid,
+def _fixed_cell(code, y, p, refr0, n, st0, st1, dt, t_hi, stepper, crossing, grid,
                 at, ar, aw, a_lo, a_hi, spk, row, cap, cnt, lower, upper, scale, rstate,
                 f0, f1, f2, f3, ys, y0, f6, f7, J, ncount):
-    """Advance one cell over steps st0..st1-1.
+    """Advance one cell over steps st0..st1-1; no step ends after ``t_hi`` (ms).
 
     ``y``, ``p``, ``lower``, ``upper``, ``scale``, ``cnt`` and the stage arrays are
     the calling thread's own 1-D copies of the cell's rows; spikes go to
@@ -97,19 +99,16 @@ def _fixed_cell(code, y, p, refr0, n, st0, st1, dt, stepper, crossing, grid,
     f_clamped = False
     for st in range(st0, st1):
         ta = st * dt
-        tb = (st + 1) * dt
+        tb = min((st + 1) * dt, t_hi)  # the last step of a run may end early, at its stop time
         if grid:
-            while a < a_hi and at[a] < tb - 0.5 * dt:  # effective times sit on grid points
+            while a < a_hi and at[a] < ta + 0.5 * dt:  # effective times sit on grid points
                 _apply(code, y, p, ar[a], aw[a], rstate)
                 cnt[C_ARRIVALS] += 1
                 a += 1
                 have_f = False
         t = ta
-        sub = 0
+        resets = 0
         while t < tb:
-            sub += 1
-            if sub > MAX_SUBSTEPS:
-                return refr, nsp, t, DIV_BOUNDS
             if not grid:
                 while a < a_hi and at[a] <= t:
                     _apply(code, y, p, ar[a], aw[a], rstate)
@@ -172,6 +171,9 @@ def _fixed_cell(code, y, p, refr0, n, st0, st1, dt, stepper, crossing, grid,
                     if tref > 0.0:
                         refr = _snap(ts + tref, dt)
                     if interpolate and ts < t_end:
+                        resets += 1
+                        if resets > MAX_RESETS_PER_STEP:
+                            return refr, nsp, ts, DIV_MAX_STEPS
                         t = ts
                         continue
             for s in range(n):
@@ -183,7 +185,7 @@ def _fixed_cell(code, y, p, refr0, n, st0, st1, dt, stepper, crossing, grid,
 
 @pjit
 def _fixed_window(code, Y, P, refr, div_time, div_code, lower, upper, scale, nst,
-                  st0, st1, dt, stepper, crossing, grid,
+                  st0, st1, dt, t_hi, stepper, crossing, grid,
                   arr_ptr, arr_time, arr_recep, arr_weight,
                   spk_count, spk_time, counters, rstate, n_chunks, redo, only_redo):
     """Advance every live cell over steps st0..st1-1 (cells in parallel chunks).
@@ -240,7 +242,7 @@ def _fixed_window(code, Y, P, refr, div_time, div_code, lower, upper, scale, nst
                 cnt[j] = 0
             ncount[0] = 0
             r, nsp, tdiv, dcode = _fixed_cell(
-                code[i], y, p, refr[i], n, st0, st1, dt, stepper, crossing, grid,
+                code[i], y, p, refr[i], n, st0, st1, dt, t_hi, stepper, crossing, grid,
                 arr_time, arr_recep, arr_weight, arr_ptr[i], arr_ptr[i + 1],
                 spk_time, i, cap, cnt, lo_b, up_b, sc, rstate,
                 f0, f1, f2, f3, ys, y0, f6, f7, J, ncount)
@@ -279,8 +281,10 @@ class FixedStepKernel:
             raise InputError(f"delivery: unknown delivery {delivery!r}; choose grid or exact")
         if not (dt_ms > 0 and math.isfinite(dt_ms)):
             raise InputError(f"dt_ms: must be a positive number, got {dt_ms!r}")
-        if delivery == "grid" and network.d_min_ms < dt_ms - SNAP_MS:
-            raise InputError(f"dt_ms: grid delivery needs every delay >= the time step; the smallest "
+        if network.d_min_ms < dt_ms - SNAP_MS:
+            # Windows are whole steps and may not be longer than the smallest delay: a spike
+            # must not reach a cell inside a window that cell has already integrated.
+            raise InputError(f"dt_ms: the time step may not exceed the smallest delay; the smallest "
                              f"delay is {network.d_min_ms:g} ms and dt is {dt_ms:g} ms")
         self.network = network
         self.dt = float(dt_ms)
@@ -290,30 +294,37 @@ class FixedStepKernel:
         self.rstate = receptor_state_table()
         self.n_chunks = max(1, 8 * numba.get_num_threads())
         d_min = network.d_min_ms
-        steps_per_window = max(1, int(math.floor(d_min / self.dt + 1e-9))) if math.isfinite(d_min) \
-            else max(1, int(round(100.0 / self.dt)))
+        if math.isfinite(d_min):
+            steps_per_window = max(1, int(math.floor(d_min / self.dt + 1e-9)))
+            if not self.grid and steps_per_window > 1 and steps_per_window * self.dt > d_min:
+                steps_per_window -= 1  # exact delivery: never let a window outgrow d_min
+        else:
+            steps_per_window = max(1, int(round(100.0 / self.dt)))
         self.steps_per_window = steps_per_window
 
     def n_steps(self, t_stop_ms: float) -> int:
         return int(math.ceil(t_stop_ms / self.dt - 1e-9))
 
     def boundaries(self, t_stop_ms: float) -> np.ndarray:
+        """Window edges on the grid, the last one at ``t_stop_ms`` itself (which may cut a step)."""
         n = self.n_steps(t_stop_ms)
         idx = np.arange(0, n, self.steps_per_window, dtype=np.int64)
-        return np.append(idx, n).astype(np.float64) * self.dt
+        edges = np.append(idx, n).astype(np.float64) * self.dt
+        edges[-1] = t_stop_ms
+        return edges
 
     def effective_time(self, time_ms):
         return grid_time(time_ms, self.dt) if self.grid else time_ms
 
     def advance(self, state, t0, t1, arrivals, spikes, counters):
         st0 = int(round(t0 / self.dt))
-        st1 = int(round(t1 / self.dt))
+        st1 = int(math.ceil(t1 / self.dt - 1e-9))
         redo = np.zeros(state.code.size, dtype=np.int8)
         only_redo = False
         while True:
             _fixed_window(state.code, state.y, state.p, state.refractory_until, state.div_time,
                           state.div_code, state.lower, state.upper, state.scale, state.n_states,
-                          st0, st1, self.dt, self.stepper, self.crossing, self.grid,
+                          st0, st1, self.dt, float(t1), self.stepper, self.crossing, self.grid,
                           arrivals.ptr, arrivals.time_ms, arrivals.receptor, arrivals.weight,
                           spikes.count, spikes.time_ms, counters, self.rstate, self.n_chunks,
                           redo, only_redo)

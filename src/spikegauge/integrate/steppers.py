@@ -118,6 +118,12 @@ def _backward_euler(code, y, p, clamped, h, n, f0, f1, y0, have_f0, scale, J, ne
             for q in range(n):
                 A[s, q] = -h * J[s, q]
             A[s, s] += 1.0
+        for s in range(n):  # a blown-up iterate: LAPACK refuses non-finite input
+            if not np.isfinite(r[s]):
+                return -1
+            for q in range(n):
+                if not np.isfinite(A[s, q]):
+                    return -1
         dz = np.linalg.solve(A, r)
         done = True
         for s in range(n):

@@ -21,8 +21,9 @@ Default sweep (:func:`default_sweep`), 60 points:
   Pairing each stepper with the interpolation of its own order is what the
   spike-time error orders call for (Hansel et al. 1998; Shelley & Tao 2001):
   a lower-order interpolation caps the order, a higher one buys nothing.
-  Grid delivery needs every delay at least one step, so grid points whose time
-  step exceeds the smallest delay are left out.
+  Every delay must be at least one step (a window is a whole number of steps
+  and no longer than the smallest delay), so points whose time step exceeds
+  the smallest delay are left out.
 * global and local adaptive, each with every error-controlled stepper
   (``bs32``, ``dp54`` and the Rosenbrock scheme), over
   rtol 1e-2 ... 1e-6 (decades), ``atol = rtol`` (in units of each state's scale).
@@ -102,8 +103,8 @@ def default_sweep(scenario, d_min_ms: float = math.inf) -> list[dict]:
     ----------
     scenario : Scenario
     d_min_ms : float
-        Smallest synaptic delay of the network (ms); grid points with a larger
-        time step are left out.
+        Smallest synaptic delay of the network (ms); fixed-step points with a
+        larger time step are left out.
 
     Returns
     -------
@@ -114,7 +115,7 @@ def default_sweep(scenario, d_min_ms: float = math.inf) -> list[dict]:
     out = []
     for stepper, crossing, delivery in FIXED_COMBOS:
         for dt in _dts(start):
-            if delivery == "grid" and dt > d_min_ms:
+            if dt > d_min_ms:  # a step may not exceed the smallest delay (windows are whole steps)
                 continue
             out.append(dict(strategy="fixed", stepper=stepper, dt_ms=dt, crossing=crossing,
                             delivery=delivery))
