@@ -30,6 +30,7 @@ class _Bar:
     def close(self):
         if self.bar is not None:
             self.bar.__exit__(None, None, None)
+            self.bar = None
 
 
 @cli.command()
@@ -60,6 +61,18 @@ def profile(scenario, out_dir, sweep_file, quick, seeds, jobs, scheduler, target
         doc = run_profile(scenario, out_dir, sweep_file=sweep_file, quick=quick, seeds=seeds, jobs=jobs,
                           scheduler=scheduler, target_jitter_ms=target_jitter_ms,
                           target_mismatch_frac=target_mismatch_frac, fresh=fresh, progress=bar)
+    except KeyboardInterrupt:
+        bar.close()
+        stored = _stored_points(out_dir)
+        click.echo(f"interrupted: {stored} finished runs are stored in {out_dir}; run the same "
+                   "command again to resume (finished runs are not recomputed)", err=True)
+        raise SystemExit(130) from None
     finally:
         bar.close()
     click.echo(profile_text(doc))
+
+
+def _stored_points(out_dir) -> int:
+    """Runs whose files are complete in the profile's store."""
+    from pathlib import Path
+    return sum(1 for d in (Path(out_dir) / "points").glob("*") if (d / "run.json").is_file())
