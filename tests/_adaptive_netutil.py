@@ -10,7 +10,7 @@ import numpy as np
 
 from spikegauge.models import MODELS, max_params, max_states
 from spikegauge.models.kernels import rhs
-from spikegauge.network import DriveEvents, Network
+from spikegauge.network import EventList, Network
 
 __all__ = ["model_params", "model_network", "hh_rest", "cell_rhs"]
 
@@ -60,7 +60,7 @@ def model_network(model: str, params, y0, t_stop_ms, synapses=(), events=(), d_m
     ptr = np.zeros(n + 1, dtype=np.int64)
     np.cumsum(np.bincount(src, minlength=n), out=ptr[1:])
     ev = np.array(sorted(events, key=lambda e: (e[0], e[1])), dtype=np.float64).reshape(-1, 4)
-    drive_events = DriveEvents(
+    drive_events = EventList(
         time_ms=ev[:, 0].copy(), cell=ev[:, 1].astype(np.int64), receptor=ev[:, 2].astype(np.int64),
         weight=ev[:, 3].copy(), source=np.full(ev.shape[0], -1, dtype=np.int64))
     if syn.shape[0]:

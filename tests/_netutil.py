@@ -11,7 +11,7 @@ import numpy as np
 
 from spikegauge.models import lif_current, max_params, max_states
 from spikegauge.models.base import P_IEXT, RECEPTOR_CURRENT, RECEPTOR_EXC, RECEPTOR_INH
-from spikegauge.network import DriveEvents, Network, PoissonDrive
+from spikegauge.network import EventList, Network, PoissonDrive
 
 __all__ = ["lif_network", "poisson_drive", "RECEPTOR_CURRENT", "RECEPTOR_EXC", "RECEPTOR_INH",
            "lif_params", "P_IEXT"]
@@ -67,7 +67,7 @@ def lif_network(params, y0, t_stop_ms, synapses=(), events=(), poisson=(), seed=
     ptr = np.zeros(n + 1, dtype=np.int64)
     np.cumsum(np.bincount(src, minlength=n), out=ptr[1:])
     ev = np.array(sorted(events, key=lambda e: (e[0], e[1])), dtype=np.float64).reshape(-1, 4)
-    drive_events = DriveEvents(
+    drive_events = EventList(
         time_ms=ev[:, 0].copy(), cell=ev[:, 1].astype(np.int64), receptor=ev[:, 2].astype(np.int64),
         weight=ev[:, 3].copy(), source=np.full(ev.shape[0], -(1 + len(poisson)), dtype=np.int64))
     return Network(

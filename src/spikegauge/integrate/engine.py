@@ -38,7 +38,7 @@ import numpy as np
 
 from .._numba import jit
 from ..errors import ComputationError
-from ..models import model_by_code, state_bounds, state_scales
+from ..models import state_bounds, state_scales
 from ..network.drive import DriveStream
 
 # Columns of the per-cell cost counters.

@@ -16,7 +16,6 @@ evaluation per step.
 
 Codes (runtime, so one compiled kernel serves every stepper):
 """
-import numba
 import numpy as np
 
 from .._numba import inline_jit, jit

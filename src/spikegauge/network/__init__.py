@@ -5,8 +5,7 @@ into a :class:`Network`; :class:`DriveStream` hands a driver the external drive
 events window by window.
 """
 from .arrays import EventList, Network, PoissonDrive
-from .build import DriveEvents, build_network
+from .build import build_network
 from .drive import DRIVE_BLOCK_MS, DriveStream
 
-__all__ = ["build_network", "DriveStream", "DRIVE_BLOCK_MS", "Network", "PoissonDrive", "EventList",
-           "DriveEvents"]
+__all__ = ["build_network", "DriveStream", "DRIVE_BLOCK_MS", "Network", "PoissonDrive", "EventList"]

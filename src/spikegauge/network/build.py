@@ -19,7 +19,6 @@ a fraction of a second.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
 
 import numpy as np
 
@@ -48,18 +47,6 @@ _KEY_BLOCK_ELEMENTS = 1 << 22
 def stream(seed: int, *key: int) -> np.random.Generator:
     """Generator for one purpose: ``SeedSequence(seed, spawn_key=key)`` into PCG64."""
     return np.random.Generator(np.random.PCG64(np.random.SeedSequence(seed, spawn_key=key)))
-
-
-@dataclass(frozen=True)
-class DriveEvents(EventList):
-    """:class:`EventList` plus the drive each event comes from.
-
-    ``source`` (int64, shape (n,)) is ``-(1 + drive index)``, the value
-    :meth:`DriveStream.take` reports, so same-time events into one cell are
-    applied in a fixed order. Sorted by (time, cell, source).
-    """
-
-    source: np.ndarray
 
 
 def build_network(scenario: Scenario) -> Network:
@@ -345,7 +332,7 @@ def fixed_probability(rng: np.random.Generator, n_src: int, n_tgt: int, p: float
 # Drives
 
 
-def _drives(scenario: Scenario, first: np.ndarray) -> tuple[tuple, DriveEvents]:
+def _drives(scenario: Scenario, first: np.ndarray) -> tuple[tuple, EventList]:
     """Poisson drives and the merged explicit events (current steps, spike files)."""
     seed = scenario.seed
     poisson = []
@@ -378,8 +365,8 @@ def _drives(scenario: Scenario, first: np.ndarray) -> tuple[tuple, DriveEvents]:
         # Events at or after the end of the run would never be delivered.
         order = np.lexsort((s, c, t))
         order = order[t[order] < scenario.duration_ms]
-        events = DriveEvents(t[order], c[order], r[order], w[order], s[order])
+        events = EventList(t[order], c[order], r[order], w[order], s[order])
     else:
-        events = DriveEvents(np.empty(0), np.empty(0, np.int64), np.empty(0, np.int64),
+        events = EventList(np.empty(0), np.empty(0, np.int64), np.empty(0, np.int64),
                              np.empty(0), np.empty(0, np.int64))
     return tuple(poisson), events

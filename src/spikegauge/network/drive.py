@@ -121,7 +121,7 @@ class DriveStream:
 
     def _explicit(self, t0: float, t1: float):
         # Explicit events are sorted by time; the builder records the drive
-        # each comes from (DriveEvents.source).
+        # each comes from (EventList.source).
         ev = self.network.events
         i0, i1 = np.searchsorted(ev.time_ms, [t0, t1], side="left")
         return (ev.time_ms[i0:i1], ev.cell[i0:i1], ev.receptor[i0:i1], ev.weight[i0:i1], ev.source[i0:i1])

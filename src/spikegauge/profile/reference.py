@@ -36,7 +36,7 @@ import math
 import numpy as np
 
 from ..analysis import compare
-from ..network.build import DriveEvents
+from ..network.arrays import EventList
 
 REFERENCE_RTOL = 1e-7
 """Tolerance of the first tight dp54 reference run; the second uses a hundredth of it."""
@@ -202,7 +202,7 @@ def apply_probe(network, probe: dict):
                         np.full(n_new, probe_source, dtype=np.int64)])
     keep = t < network.t_stop_ms
     order = np.lexsort((s[keep], c[keep], t[keep]))
-    events = DriveEvents(t[keep][order], c[keep][order], r[keep][order], w[keep][order], s[keep][order])
+    events = EventList(t[keep][order], c[keep][order], r[keep][order], w[keep][order], s[keep][order])
     return dataclasses.replace(network, events=events)
 
 
