@@ -17,6 +17,12 @@ from .runs import Run
 
 STRATEGIES = ("fixed", "global-adaptive", "local-adaptive", "exact")
 
+MIN_DT_MS = 1e-9
+"""Smallest time step accepted (ms): the grid snapping tolerance."""
+
+MIN_TOLERANCE = 1e-14
+"""Smallest rtol/atol accepted: about 100 times the double-precision epsilon (common practice)."""
+
 DEFAULTS = {
     "fixed": dict(stepper="rk4", crossing="hermite", delivery="exact", dt_ms=0.025),
     "global-adaptive": dict(stepper="dp54", crossing="dense"),
@@ -69,6 +75,8 @@ def resolve_settings(scenario, strategy=None, stepper=None, dt_ms=None, crossing
             if given[key] is not None:
                 raise InputError(f"{key}: tolerances apply to adaptive strategies, not to 'fixed'")
         out["dt_ms"] = float(out["dt_ms"])
+        if not (MIN_DT_MS <= out["dt_ms"] < math.inf):
+            raise InputError(f"dt_ms: must be a time step of at least {MIN_DT_MS:g} ms, got {out['dt_ms']!r}")
     elif strategy in ("global-adaptive", "local-adaptive"):
         if given["dt_ms"] is not None:
             raise InputError(f"dt_ms: a time step applies to the fixed strategy, not to {strategy!r}")
@@ -79,6 +87,10 @@ def resolve_settings(scenario, strategy=None, stepper=None, dt_ms=None, crossing
             raise InputError(f"rtol: {strategy} needs a relative tolerance (for example --rtol 1e-4)")
         out["rtol"] = float(s["rtol"])
         out["atol"] = float(s["atol"]) if s.get("atol") is not None else out["rtol"]
+        for key in ("rtol", "atol"):
+            if not (MIN_TOLERANCE <= out[key] <= 1.0):
+                raise InputError(f"{key}: must lie between {MIN_TOLERANCE:g} (what double precision can "
+                                 f"resolve) and 1, got {out[key]!r}")
     else:
         for key in ("stepper", "dt_ms", "crossing", "delivery", "rtol", "atol"):
             if given[key] is not None:
@@ -141,6 +153,9 @@ def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, d
     t_stop = float(network.t_stop_ms if t_stop_ms is None else t_stop_ms)
     if not (t_stop > 0 and math.isfinite(t_stop)):
         raise InputError(f"t_stop_ms: must be a positive number, got {t_stop!r}")
+    if settings["strategy"] == "fixed" and settings["dt_ms"] > t_stop:
+        raise InputError(f"dt_ms: a time step of {settings['dt_ms']:g} ms is longer than the run "
+                         f"({t_stop:g} ms)")
     if t_stop > network.t_stop_ms:
         # The drive (Poisson trains, step ends, input spikes) is defined up to the duration only.
         raise InputError(f"t_stop_ms: must not exceed the scenario's duration_ms = "

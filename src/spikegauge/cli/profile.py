@@ -52,7 +52,7 @@ class _Bar:
 @click.option("--quiet", is_flag=True, help="No progress bar.")
 def profile(scenario, out_dir, sweep_file, quick, seeds, jobs, scheduler, target_jitter_ms,
             target_mismatch_frac, fresh, quiet):
-    """Run the reference, the sensitivity ladder and the sweep of SCENARIO; write the profile."""
+    """Run the reference, the sensitivity ladder and the sweep of SCENARIO; write the profile and its report."""
     from ..profile import run_profile
     from ..profile.summary import profile_text
 
@@ -70,6 +70,10 @@ def profile(scenario, out_dir, sweep_file, quick, seeds, jobs, scheduler, target
     finally:
         bar.close()
     click.echo(profile_text(doc))
+    from ..report.report import build_report
+    paths = build_report(out_dir)
+    click.echo(f"report: {out_dir}/report.html ({len(paths)} files; `spikegauge report {out_dir}` "
+               "rebuilds it from the stored results)")
 
 
 def _stored_points(out_dir) -> int:

@@ -221,7 +221,7 @@ def global_window(method, code, Y, P, refr, div_time, div_code, g_state, lower, 
                 record_step(0, t, h, False, tr_time, tr_h, tr_acc, tr_count)
             h_prop = next_step_rejected(h, err, expo)
             after_reject = True
-            if h_prop < h_min:
+            if not h_prop >= h_min:  # also stops a NaN step size
                 g_state[0] = h_prop
                 g_state[1] = err_prev
                 div_time[worst] = t

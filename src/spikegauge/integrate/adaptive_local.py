@@ -134,7 +134,7 @@ def _local_cell(method, code, y, p, refr0, h_start, err_prev0, n, t0, t1, rtol, 
             record_step(slot, t, h, False, tr_time, tr_h, tr_acc, tr_count)
             h_prop = next_step_rejected(h, err, expo)
             after_reject = True
-            if h_prop < h_min:
+            if not h_prop >= h_min:  # also stops a NaN step size
                 return refr, nsp, h_prop, err_prev, t, DIV_MIN_STEP
         h_new, err_prev = next_step_accepted(h, err, err_prev, expo, after_reject)
         after_reject = False
