@@ -10,6 +10,7 @@ import pytest
 import spikegauge
 from spikegauge.integrate.engine import run_windows
 from spikegauge.integrate.fixed import FixedStepKernel
+from spikegauge.bench import SINGLE_HH_TOML
 from spikegauge.simulation import simulate
 
 from _netutil import RECEPTOR_EXC, lif_network, lif_params
@@ -67,21 +68,6 @@ def test_many_arrivals_inside_one_step_are_not_a_divergence():
     assert run.cost["arrivals"] == 10001
 
 
-SINGLE_HH = """
-[scenario]
-name = "single-hh"
-duration_ms = 100.0
-seed = 1
-
-[[group]]
-name = "cell"
-size = 1
-model = "hh-squid"
-[group.parameters]
-i_bias_ua_per_cm2 = 10.0
-[group.initial]
-v_mv = -65.0
-"""
 
 
 @pytest.mark.parametrize("dt_ms", [1.0, 3.0])
@@ -89,7 +75,7 @@ def test_backward_euler_blow_up_is_a_status_not_a_crash(tmp_path, dt_ms):
     # Huge implicit steps on HH: the Newton iterate blows up (at 3 ms the Jacobian turns
     # non-finite, which LAPACK refuses); either way the run reports it, naming Newton.
     path = tmp_path / "hh.toml"
-    path.write_text(SINGLE_HH)
+    path.write_text(SINGLE_HH_TOML.format(duration=100.0))
     run = simulate(path, strategy="fixed", stepper="backward-euler", dt_ms=dt_ms,
                    crossing="linear", delivery="exact")
     assert run.status == "diverged"

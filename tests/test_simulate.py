@@ -8,23 +8,9 @@ from scipy.integrate import solve_ivp
 import spikegauge
 from spikegauge.cli.main import cli
 from spikegauge.models import get_model
+from spikegauge.bench import SINGLE_HH_TOML as SINGLE_HH
 from spikegauge.models.kernels import rhs
 
-SINGLE_HH = """
-[scenario]
-name = "single-hh"
-duration_ms = {duration}
-seed = 1
-
-[[group]]
-name = "cell"
-size = 1
-model = "hh-squid"
-[group.parameters]
-i_bias_ua_per_cm2 = 10.0
-[group.initial]
-v_mv = -65.0
-"""
 
 
 def _write(tmp_path, text, name="s.toml"):

@@ -39,6 +39,8 @@ from pathlib import Path
 import numba
 import numpy as np
 
+from .errors import InputError
+
 BENCH_KEYS = (
     "lif_loop_s_1t", "lif_loop_s_2t", "lif_spikes",
     "hh_loop_s_1t", "hh_loop_s_2t", "hh_spikes",
@@ -55,9 +57,15 @@ SINGLE_HH_ERR_TARGET_MS = 1e-5
 ADAPTIVE_RTOL_LADDER = (1e-4, 3e-5, 1e-5, 3e-6, 1e-6, 3e-7, 1e-7, 3e-8, 1e-8)
 """Tolerances tried, loosest first, for the adaptive single-cell run."""
 
-SCENARIO_DIR = Path(__file__).resolve().parents[2] / "scenarios"
+def scenario_dir() -> Path:
+    """The folder holding the bundled scenarios: ``./scenarios`` first, then the source tree's."""
+    for d in (Path.cwd() / "scenarios", Path(__file__).resolve().parents[2] / "scenarios"):
+        if (d / "bench-lif.toml").is_file():
+            return d
+    raise InputError("the benchmark needs the bundled scenarios (scenarios/bench-lif.toml): run it "
+                     "from the spikegauge source folder")
 
-_SINGLE_HH_TOML = """
+SINGLE_HH_TOML = """
 [scenario]
 name = "single-hh"
 duration_ms = {duration}
@@ -144,7 +152,7 @@ def network_bench(name: str, settings: dict, t_stop_ms: float, reps: int) -> dic
     from .scenario import load_scenario
     from .simulation import simulate
 
-    network = build_network(load_scenario(SCENARIO_DIR / f"{name}.toml"))
+    network = build_network(load_scenario(scenario_dir() / f"{name}.toml"))
     dt = settings["dt_ms"]
     warm_ms = min(t_stop_ms, 10 * dt * max(1, round(network.d_min_ms / dt)))
     warmup_s, _ = _timed(lambda: simulate(network, strategy="fixed", t_stop_ms=warm_ms, **settings))
@@ -230,7 +238,7 @@ def _single_hh_network(duration_ms: float):
     from .network import build_network
     from .scenario import parse_scenario
 
-    return build_network(parse_scenario(_SINGLE_HH_TOML.format(duration=float(duration_ms)),
+    return build_network(parse_scenario(SINGLE_HH_TOML.format(duration=float(duration_ms)),
                                         source="single-hh (bench)"))
 
 
@@ -315,7 +323,7 @@ def _compile_everything() -> float:
     from .scenario import load_scenario
     from .simulation import simulate
 
-    nets = [(build_network(load_scenario(SCENARIO_DIR / f"{name}.toml")), settings)
+    nets = [(build_network(load_scenario(scenario_dir() / f"{name}.toml")), settings)
             for name, settings in (("bench-lif", LIF_SETTINGS), ("bench-hh", HH_SETTINGS))]
     t0 = time.perf_counter()
     for net, settings in nets:
@@ -353,7 +361,7 @@ def advise_bench(quick: bool) -> tuple[float | None, str, dict]:
     from .scenario import load_scenario
     from .simulation import simulate
 
-    path = SCENARIO_DIR / "demo-lif.toml"
+    path = scenario_dir() / "demo-lif.toml"
     scenario = load_scenario(path)
     n, t = 2 * scenario.n_cells, 2 * scenario.duration_ms
     with tempfile.TemporaryDirectory() as prof:
