@@ -105,6 +105,9 @@ def test_adaptive_options_are_refused_for_fixed_and_back():
         spikegauge.simulate("scenarios/demo-lif.toml", strategy="fixed", rtol=1e-3, t_stop_ms=1.0)
     with pytest.raises(spikegauge.InputError, match="crossing"):
         spikegauge.simulate("scenarios/demo-lif.toml", strategy="fixed", crossing="dense", t_stop_ms=1.0)
+    with pytest.raises(spikegauge.InputError, match="delivery"):
+        spikegauge.simulate("scenarios/demo-lif.toml", strategy="local-adaptive", rtol=1e-4,
+                            delivery="grid", t_stop_ms=1.0)
     with pytest.raises(spikegauge.InputError, match="stepper"):
         spikegauge.simulate("scenarios/demo-lif.toml", strategy="fixed", stepper="rk7", t_stop_ms=1.0)
 

@@ -78,8 +78,10 @@ def resolve_settings(scenario, strategy=None, stepper=None, dt_ms=None, crossing
         if not (MIN_DT_MS <= out["dt_ms"] < math.inf):
             raise InputError(f"dt_ms: must be a time step of at least {MIN_DT_MS:g} ms, got {out['dt_ms']!r}")
     elif strategy in ("global-adaptive", "local-adaptive"):
-        if given["dt_ms"] is not None:
-            raise InputError(f"dt_ms: a time step applies to the fixed strategy, not to {strategy!r}")
+        for key in ("dt_ms", "delivery"):
+            if given[key] is not None:
+                raise InputError(f"{key}: applies to the fixed strategy, not to {strategy!r} "
+                                 "(every arrival ends an adaptive step exactly)")
         if out["crossing"] != "dense":
             raise InputError(f"crossing: adaptive strategies locate crossings on dense output; "
                              f"'dense' is the only choice, got {out['crossing']!r}")
