@@ -142,3 +142,12 @@ def test_t_stop_beyond_duration_is_refused():
     # past it would silently lose input.
     with pytest.raises(spikegauge.InputError, match="duration_ms"):
         spikegauge.simulate("scenarios/demo-lif.toml", t_stop_ms=1500.0)
+
+
+def test_simulate_command_memory_limit_option(tmp_path):
+    # --max-memory-gb overrides the machine's memory; a tiny limit refuses before any work.
+    res = CliRunner().invoke(cli, ["simulate", "scenarios/bench-lif.toml", "--max-memory-gb", "0.001",
+                                   "--quiet", "--out", str(tmp_path / "x")])
+    assert res.exit_code == 2
+    assert "max_memory_gb" in res.output and "GB" in res.output
+    assert not (tmp_path / "x").exists()

@@ -22,15 +22,17 @@ from .main import cli, progress_bar
 @click.option("--auto-scale", is_flag=True, help="Measure state scales with a short pilot run (adaptive).")
 @click.option("--threads", type=int, help="Number of threads (results do not depend on it).")
 @click.option("--csv", "write_csv", is_flag=True, help="Also write spikes.csv.")
+@click.option("--max-memory-gb", type=float,
+              help="Memory (GB) the run may use; overrides the machine's available memory.")
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Run folder to write.")
 @click.option("--quiet", is_flag=True, help="No progress bar.")
 def simulate(scenario, strategy, stepper, dt_ms, crossing, delivery, rtol, atol, auto_scale, threads,
-             write_csv, out_dir, quiet):
+             write_csv, max_memory_gb, out_dir, quiet):
     """Integrate SCENARIO once and write spikes.npz and run.json to --out."""
     from ..scenario import load_scenario
     from ..simulation import resolve_settings, simulate as run_simulation
 
-    scen = load_scenario(scenario)
+    scen = load_scenario(scenario, max_memory_gb=max_memory_gb)
     options = dict(strategy=strategy, stepper=stepper, dt_ms=dt_ms, crossing=crossing,
                    delivery=delivery, rtol=rtol, atol=atol)
     resolve_settings(scen, **options)  # refuse bad options before any work
