@@ -26,14 +26,15 @@ import numpy as np
 from .._numba import jit
 from ..models.base import P_TREF, P_VRESET, P_VTH
 from ..models.kernels import reset, rhs
-from .adaptive_local import STRETCH, record_step, spike_time
+from .adaptive_local import record_step, spike_time
 from .adaptive_steppers import (DENSE_DEGREE, F1_ROW, ROW_DENSE, ROW_ERR, ROW_Y1, dense_coefficients,
                                 dense_state, finish_step, trial_step)
 from .dense import upward_crossings
 from .engine import (C_ARRIVALS, C_NEWTON, C_REJECTED, C_RHS, C_STEPS, DIV_BOUNDS, DIV_MAX_STEPS,
                      DIV_MIN_STEP)
 from .fixed import _apply, _in_bounds
-from .step_control import error_norm, initial_step, next_step_accepted, next_step_rejected
+from .step_control import (error_norm, initial_step, next_step_accepted, next_step_rejected,
+                           step_to_end)
 
 
 @jit
@@ -196,14 +197,7 @@ def global_window(method, code, Y, P, refr, div_time, div_code, g_state, lower, 
                 div_time[0] = t
                 div_code[0] = DIV_MAX_STEPS
                 return
-            h = min(h_prop, h_max)
-            cut = False
-            if t + STRETCH * h >= t_end:
-                cut = t_end - t < h
-                h = t_end - t
-                t_new = t_end
-            else:
-                t_new = t + h
+            h, t_new, cut = step_to_end(t, h_prop, h_max, t_end)
             _trial_phase(t, h, method, code, Y, P, refr, nst, KK, MM, PIV, JJ, norms, counters,
                          rtol, atol, scale, pzero)
             err = norms[0]

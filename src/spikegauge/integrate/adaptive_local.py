@@ -25,14 +25,9 @@ from .dense import upward_crossings
 from .engine import (C_ARRIVALS, C_NEWTON, C_REJECTED, C_RHS, C_STEPS, DIV_BOUNDS, DIV_MAX_STEPS,
                      DIV_MIN_STEP)
 from .fixed import _apply, _in_bounds
-from .step_control import (error_norm, initial_step, next_step_accepted, next_step_rejected)
+from .step_control import (error_norm, initial_step, next_step_accepted, next_step_rejected,
+                           step_to_end)
 
-STRETCH = 1.05
-"""A step that would end within this factor of the next event is stretched onto it.
-
-Without it a step landing just short of an event leaves a sliver step behind;
-5 % sits well inside the controller's safety factor of 0.9.
-"""
 
 
 @jit
@@ -111,14 +106,7 @@ def _local_cell(method, code, y, p, refr0, h_start, err_prev0, n, t0, t1, rtol, 
         while True:
             if cnt[C_STEPS] + cnt[C_REJECTED] >= max_steps:
                 return refr, nsp, h_prop, err_prev, t, DIV_MAX_STEPS
-            h = min(h_prop, h_max)
-            cut = False
-            if t + STRETCH * h >= t_end:
-                cut = t_end - t < h
-                h = t_end - t
-                t_new = t_end
-            else:
-                t_new = t + h
+            h, t_new, cut = step_to_end(t, h_prop, h_max, t_end)
             nf, nls = trial_step(method, code, y, p, clamped, h, n, K, M, piv, J)
             if nf < 0:
                 err = np.inf
