@@ -22,6 +22,10 @@ import numba
 KERNEL_PACKAGES = ("models", "integrate", "analysis")
 """Sub-packages whose modules define numba kernels (keep in step with the code)."""
 
+STRICT_EXP_ENV = "SPIKEGAUGE_STRICT_EXP"
+"""Set to 1 to build the models with the C library's exp instead of the vectorisable one
+(:mod:`spikegauge.models.fastexp`); part of the cache key."""
+
 
 def _source_digest() -> str:
     root = Path(__file__).resolve().parent
@@ -31,6 +35,7 @@ def _source_digest() -> str:
     for path in files:
         h.update(str(path.relative_to(root)).encode())
         h.update(path.read_bytes())
+    h.update(os.environ.get(STRICT_EXP_ENV, "").encode())  # a compile-time switch of the models
     return h.hexdigest()[:16]
 
 
@@ -43,12 +48,11 @@ def _cache_dir() -> str:
 
 numba.config.CACHE_DIR = _cache_dir()
 
-jit = numba.njit(cache=True, nogil=True)
+jit = numba.njit(cache=True, nogil=True, error_model="numpy")
 """Serial kernel decorator."""
 
-pjit = numba.njit(cache=True, nogil=True, parallel=True)
+pjit = numba.njit(cache=True, nogil=True, parallel=True, error_model="numpy")
 """Parallel (prange) kernel decorator."""
 
-inline_jit = numba.njit(cache=True, nogil=True, inline="always")
-"""Serial kernel inlined into its callers at numba IR level (small hot helpers).
-Cannot be called from inside a ``prange`` body."""
+inline_jit = numba.njit(cache=True, nogil=True, inline="always", error_model="numpy")
+"""Serial kernel inlined into its callers at numba IR level (small hot helpers)."""

@@ -4,6 +4,7 @@ from __future__ import annotations
 import hashlib
 import math
 import platform
+from functools import partial
 from pathlib import Path
 
 import numba
@@ -170,12 +171,17 @@ def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, d
             numba.set_num_threads(int(threads))
         kernel = make_kernel(network, settings, auto_scale=auto_scale, record_steps=record_steps)
         state = CellState.initial(network, getattr(kernel, "scale_table", None))
-        compile_s = warm_up(kernel, state)
+        compile_s = warm_up(kernel, state, network)
         recorder = _TraceRecorder(network, record_cells, record_interval_ms, kernel) \
             if record_cells is not None else None
-        result = run_windows(network, kernel, t_stop, state=state, progress=progress,
-                             extra_edges=None if recorder is None else recorder.times(t_stop),
-                             on_window=None if recorder is None else recorder)
+        run = getattr(kernel, "run", None)
+        if run is None:
+            run = partial(run_windows, network, kernel)
+        else:
+            run = partial(run, network)
+        result = run(t_stop, state=state, progress=progress,
+                     extra_edges=None if recorder is None else recorder.times(t_stop),
+                     on_window=None if recorder is None else recorder)
         n_threads = numba.get_num_threads()
     finally:
         numba.set_num_threads(threads_before)
@@ -197,7 +203,7 @@ def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, d
     )
 
 
-def warm_up(kernel, state) -> float:
+def warm_up(kernel, state, network=None) -> float:
     """Compile (or load from the disk cache) the kernel with a zero-length window.
 
     The state is restored afterwards, so the run is unchanged; the returned
@@ -206,6 +212,10 @@ def warm_up(kernel, state) -> float:
     import time
 
     n = state.code.size
+    if network is not None and hasattr(kernel, "warm_up"):
+        tic = time.perf_counter()
+        if kernel.warm_up(network, state):
+            return time.perf_counter() - tic
     snap = state.snapshot()
     empty = WindowArrivals(np.zeros(n + 1, dtype=np.int64), np.empty(0),
                            np.empty(0, dtype=np.int64), np.empty(0))

@@ -37,17 +37,25 @@ from .steppers import STEPPER_CODES, fixed_step
 SNAP_MS = 1e-9
 """A time within this distance of a grid point is taken to be on it (ms)."""
 
-MAX_RESETS_PER_STEP = 10_000
+MAX_RESETS_PER_STEP = 15
 """Resets inside one step (runaway firing without a refractory period) before the cell is
-declared diverged; splits at arrivals are bounded by the arrivals and not counted."""
+declared diverged: a cell firing this often within one step is not resolved by the step at
+all. Splits at arrivals are bounded by the arrivals and not counted."""
+
+
+def grid_indices(time_ms: np.ndarray, dt_ms: float) -> np.ndarray:
+    """Index ``n`` of the first grid point ``n * dt`` at or after each time (within SNAP_MS
+    of a grid point counts as on it); int64."""
+    t = np.asarray(time_ms, dtype=np.float64)
+    s = t / dt_ms
+    r = np.floor(s + 0.5)
+    on = np.abs(t - r * dt_ms) <= SNAP_MS
+    return np.where(on, r, np.ceil(s)).astype(np.int64)
 
 
 def grid_time(time_ms: np.ndarray, dt_ms: float) -> np.ndarray:
     """First grid point ``n * dt`` at or after each time (snapping within SNAP_MS)."""
-    s = np.asarray(time_ms, dtype=np.float64) / dt_ms
-    r = np.round(s)
-    on = np.abs(np.asarray(time_ms) - r * dt_ms) <= SNAP_MS
-    return np.where(on, r, np.ceil(s)) * dt_ms
+    return grid_indices(time_ms, dt_ms) * dt_ms
 
 
 @jit
@@ -315,6 +323,24 @@ class FixedStepKernel:
 
     def effective_time(self, time_ms):
         return grid_time(time_ms, self.dt) if self.grid else time_ms
+
+    def run(self, network, t_stop_ms, state, progress=None, on_window=None, extra_edges=None):
+        """Integrate the whole run: grid delivery in the block loop of
+        :mod:`spikegauge.integrate.fixed_block`, exact delivery window by window."""
+        if self.grid:
+            from .fixed_block import run_grid
+            return run_grid(self, network, t_stop_ms, state, progress, on_window, extra_edges)
+        from .engine import run_windows
+        return run_windows(network, self, t_stop_ms, state=state, progress=progress,
+                           on_window=on_window, extra_edges=extra_edges)
+
+    def warm_up(self, network, state):
+        """Compile (or load) the kernels of this setting without advancing ``state``."""
+        if not self.grid:
+            return False
+        from .fixed_block import GridRun, _no_drive
+        GridRun(network, state, self.dt, self.stepper, self.crossing, self.dt).advance(0, 0, _no_drive())
+        return True
 
     def advance(self, state, t0, t1, arrivals, spikes, counters):
         st0 = int(round(t0 / self.dt))

@@ -30,7 +30,8 @@ import math
 
 import numpy as np
 
-from .._numba import jit
+from .._numba import inline_jit, jit
+from .fastexp import exp
 from .base import P_IEXT, P_TREF, P_VRESET, P_VTH, ModelSpec, ParamInfo
 
 CODE = 3
@@ -120,12 +121,15 @@ SPEC = ModelSpec(
 # ---------------------------------------------------------------- rate helpers
 # Shared with hh_interneuron (same functional forms, shifted).
 
-@jit
+@inline_jit
 def efun(x):
-    """x / (1 - exp(-x)), continuous through x = 0 (1 + x/2 for |x| < 1e-6)."""
-    if abs(x) < 1e-6:
-        return 1.0 + 0.5 * x
-    return x / (1.0 - math.exp(-x))
+    """x / (1 - exp(-x)), continuous through x = 0 (1 + x/2 for |x| < 1e-6).
+
+    Both branches are computed and one selected (at x = 0 the quotient is NaN
+    and unused), so a loop over cells stays vectorisable.
+    """
+    q = x / (1.0 - exp(-x))
+    return 1.0 + 0.5 * x if abs(x) < 1e-6 else q
 
 
 @jit
@@ -138,26 +142,26 @@ def defun(x):
     """
     if abs(x) < 1e-3:
         return 0.5 + x / 6.0 - x * x * x / 180.0
-    e = math.exp(-x)
+    e = exp(-x)
     d = 1.0 - e
     return (1.0 - e * (1.0 + x)) / (d * d)
 
 
-@jit
+@inline_jit
 def temperature_factor(temperature_c):
     """phi = Q10 ** ((T - 6.3) / 10): multiplies every gating rate."""
     return Q10 ** ((temperature_c - T_BASE_C) / 10.0)
 
 
-@jit
+@inline_jit
 def _rates(v):
     """(alpha_m, beta_m, alpha_h, beta_h, alpha_n, beta_n) at 6.3 deg C, 1/ms."""
     am = efun((v + 40.0) / 10.0)                 # = 0.1 (V+40) / (1 - e^{-(V+40)/10})
-    bm = 4.0 * math.exp(-(v + 65.0) / 18.0)
-    ah = 0.07 * math.exp(-(v + 65.0) / 20.0)
-    bh = 1.0 / (1.0 + math.exp(-(v + 35.0) / 10.0))
+    bm = 4.0 * exp(-(v + 65.0) / 18.0)
+    ah = 0.07 * exp(-(v + 65.0) / 20.0)
+    bh = 1.0 / (1.0 + exp(-(v + 35.0) / 10.0))
     an = 0.1 * efun((v + 55.0) / 10.0)           # = 0.01 (V+55) / (1 - e^{-(V+55)/10})
-    bn = 0.125 * math.exp(-(v + 65.0) / 80.0)
+    bn = 0.125 * exp(-(v + 65.0) / 80.0)
     return am, bm, ah, bh, an, bn
 
 
@@ -175,28 +179,79 @@ def _rate_derivatives(v, bm, ah, bh, bn):
 
 # --------------------------------------------------------------------- kernels
 
+@inline_jit
+def _voltage_derivative(v, m, h, n, g_e, g_i, i_ext, c, g_na_max, g_k_max, g_l, e_na, e_k, e_l,
+                        e_exc, e_inh, clamped):
+    """dV/dt (mV/ms) from scalars."""
+    g_na = g_na_max * m * m * m * h
+    n2 = n * n
+    g_k = g_k_max * n2 * n2
+    i_tot = (i_ext - g_na * (v - e_na) - g_k * (v - e_k) - g_l * (v - e_l)
+             + g_e * (e_exc - v) + g_i * (e_inh - v))
+    return 0.0 if clamped else i_tot / c
+
+
+@inline_jit
+def _gate_derivatives(v, m, h, n, phi):
+    """(dm, dh, dn)/dt (1/ms) from scalars."""
+    am, bm, ah, bh, an, bn = _rates(v)
+    return (phi * (am * (1.0 - m) - bm * m),
+            phi * (ah * (1.0 - h) - bh * h),
+            phi * (an * (1.0 - n) - bn * n))
+
+
 @jit
 def rhs(y, p, clamped, dydt):
     """Right-hand side of one cell; see the module docstring. Writes dydt[0:6]."""
     v = y[S_V]
-    m = y[S_M]
-    h = y[S_H]
-    n = y[S_N]
-    g_e = y[S_G_EXC]
-    g_i = y[S_G_INH]
-    g_na = p[P_G_NA] * m * m * m * h
-    n2 = n * n
-    g_k = p[P_G_K] * n2 * n2
-    i_tot = (p[P_IEXT] - g_na * (v - p[P_E_NA]) - g_k * (v - p[P_E_K]) - p[P_G_L] * (v - p[P_E_L])
-             + g_e * (p[P_E_EXC] - v) + g_i * (p[P_E_INH] - v))
-    dydt[S_V] = 0.0 if clamped else i_tot / p[P_C_M]
-    phi = temperature_factor(p[P_TEMPERATURE])
-    am, bm, ah, bh, an, bn = _rates(v)
-    dydt[S_M] = phi * (am * (1.0 - m) - bm * m)
-    dydt[S_H] = phi * (ah * (1.0 - h) - bh * h)
-    dydt[S_N] = phi * (an * (1.0 - n) - bn * n)
-    dydt[S_G_EXC] = -g_e / p[P_TAU_SYN_EXC]
-    dydt[S_G_INH] = -g_i / p[P_TAU_SYN_INH]
+    dydt[S_V] = _voltage_derivative(
+        v, y[S_M], y[S_H], y[S_N], y[S_G_EXC], y[S_G_INH], p[P_IEXT], p[P_C_M], p[P_G_NA],
+        p[P_G_K], p[P_G_L], p[P_E_NA], p[P_E_K], p[P_E_L], p[P_E_EXC], p[P_E_INH], clamped)
+    dydt[S_M], dydt[S_H], dydt[S_N] = _gate_derivatives(
+        v, y[S_M], y[S_H], y[S_N], temperature_factor(p[P_TEMPERATURE]))
+    dydt[S_G_EXC] = -y[S_G_EXC] / p[P_TAU_SYN_EXC]
+    dydt[S_G_INH] = -y[S_G_INH] / p[P_TAU_SYN_INH]
+
+
+D_PHI = 0
+"""Row of the derived-constant array holding phi (see :func:`derive_cols`)."""
+
+
+@jit
+def derive_cols(P, lo, hi, D):
+    """Per-cell constants of cells lo..hi-1 that :func:`rhs_cols` reads: D[D_PHI, i] = phi."""
+    for i in range(lo, hi):
+        D[D_PHI, i] = temperature_factor(P[P_TEMPERATURE, i])
+
+
+@jit
+def rhs_cols(Y, P, D, lo, hi, clamped, F, k):
+    """Right-hand side of cells lo..hi-1 at once (structure of arrays).
+
+    ``Y``: (n_states, >= hi - lo), column ``i - lo`` for cell ``i``; writes ``F[k]``;
+    ``P``: (n_params, n_cells) and ``D`` (from :func:`derive_cols`), column ``i``;
+    ``clamped[i - lo]`` the clamp flag.
+
+    Three loops (voltage, gates, synapses) rather than one: LLVM checks at run
+    time that no output row overlaps an input row, and gives up vectorising a
+    loop that would need too many such checks (one loop over all six outputs
+    and nineteen inputs does not vectorise; these three do).
+    """
+    base = np.uint64(lo)
+    m = np.uint64(hi - lo)
+    for j in range(m):  # unsigned indices: no negative-index wraparound,
+        i = base + j    # which would stop LLVM from vectorising the loop
+        F[k, S_V, j] = _voltage_derivative(
+            Y[S_V, j], Y[S_M, j], Y[S_H, j], Y[S_N, j], Y[S_G_EXC, j], Y[S_G_INH, j],
+            P[P_IEXT, i], P[P_C_M, i], P[P_G_NA, i], P[P_G_K, i], P[P_G_L, i], P[P_E_NA, i],
+            P[P_E_K, i], P[P_E_L, i], P[P_E_EXC, i], P[P_E_INH, i], clamped[j])
+    for j in range(m):
+        F[k, S_M, j], F[k, S_H, j], F[k, S_N, j] = _gate_derivatives(
+            Y[S_V, j], Y[S_M, j], Y[S_H, j], Y[S_N, j], D[D_PHI, base + j])
+    for j in range(m):
+        i = base + j
+        F[k, S_G_EXC, j] = -Y[S_G_EXC, j] / P[P_TAU_SYN_EXC, i]
+        F[k, S_G_INH, j] = -Y[S_G_INH, j] / P[P_TAU_SYN_INH, i]
 
 
 @jit

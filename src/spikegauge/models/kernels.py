@@ -29,6 +29,8 @@ branch is on a per-cell constant and costs nothing next to a right-hand side.
 """
 from __future__ import annotations
 
+import numpy as np
+
 from .._numba import jit
 from . import adex, hh_interneuron, hh_squid, lif_conductance, lif_current
 
@@ -91,3 +93,44 @@ def reset(code, y, p):
         hh_squid.reset(y, p)
     elif code == 4:
         hh_interneuron.reset(y, p)
+
+
+N_DERIVED = 1
+"""Rows of the derived-constant array ``D`` of :func:`rhs_cols` (hh-squid's phi)."""
+
+
+@jit
+def derive_cols(code, P, lo, hi, D):
+    """Fill ``D[:, lo:hi]`` with the per-cell constants :func:`rhs_cols` reads (model ``code``)."""
+    if code == 3:
+        hh_squid.derive_cols(P, lo, hi, D)
+
+
+@jit
+def rhs_cols(code, Y, P, D, lo, hi, n_states, clamped, F, k):
+    """Right-hand side of cells lo..hi-1, all of model ``code``, in structure-of-arrays form.
+
+    ``Y`` is (>= n_states, >= hi - lo) with column ``i - lo`` for cell ``i``;
+    the derivatives go to ``F[k, :n_states, :hi - lo]``; ``P`` (n_params, n_cells) and ``D`` (N_DERIVED, n_cells) are indexed by
+    ``i``; ``clamped[i - lo]`` is the clamp flag. Models with a column form run
+    it as one loop that LLVM vectorises; the others go cell by cell through
+    :func:`rhs` (same numbers, scalar speed).
+    """
+    if code == 0:
+        lif_current.rhs_cols(Y, P, lo, hi, clamped, F, k)
+    elif code == 1:
+        lif_conductance.rhs_cols(Y, P, lo, hi, clamped, F, k)
+    elif code == 3:
+        hh_squid.rhs_cols(Y, P, D, lo, hi, clamped, F, k)
+    else:
+        y = np.zeros(Y.shape[0])
+        p = np.empty(P.shape[0])
+        f = np.zeros(Y.shape[0])
+        for j in range(hi - lo):
+            for s in range(n_states):
+                y[s] = Y[s, j]
+            for s in range(P.shape[0]):
+                p[s] = P[s, lo + j]
+            rhs(code, y, p, clamped[j], f)
+            for s in range(n_states):
+                F[k, s, j] = f[s]

@@ -19,7 +19,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .._numba import jit
+from .._numba import inline_jit, jit
 from .base import P_IEXT, P_TREF, P_VRESET, P_VTH, ModelSpec, ParamInfo
 from .lif_current import (
     NEG_SCALES_ALLOWED,
@@ -80,17 +80,37 @@ SPEC = ModelSpec(
 )
 
 
+@inline_jit
+def _derivatives(v, g_e, g_i, i_ext, c, tau_m, e_l, e_exc, e_inh, tau_exc, tau_inh, clamped):
+    """(dV/dt, dg_exc/dt, dg_inh/dt) from scalars; the one writing of the equations."""
+    g_l = c / tau_m
+    i_tot = g_l * (e_l - v) + g_e * (e_exc - v) + g_i * (e_inh - v) + i_ext
+    dv = 0.0 if clamped else i_tot / c
+    return dv, -g_e / tau_exc, -g_i / tau_inh
+
+
 @jit
 def rhs(y, p, clamped, dydt):
     """Right-hand side of one cell; see the module docstring. Writes dydt[0:3]."""
-    v = y[S_V]
-    c = p[P_C_M]
-    g_l = c / p[P_TAU_M]
-    i_tot = (g_l * (p[P_E_L] - v) + y[S_G_EXC] * (p[P_E_EXC] - v)
-             + y[S_G_INH] * (p[P_E_INH] - v) + p[P_IEXT])
-    dydt[S_V] = 0.0 if clamped else i_tot / c
-    dydt[S_G_EXC] = -y[S_G_EXC] / p[P_TAU_SYN_EXC]
-    dydt[S_G_INH] = -y[S_G_INH] / p[P_TAU_SYN_INH]
+    dydt[S_V], dydt[S_G_EXC], dydt[S_G_INH] = _derivatives(
+        y[S_V], y[S_G_EXC], y[S_G_INH], p[P_IEXT], p[P_C_M], p[P_TAU_M], p[P_E_L],
+        p[P_E_EXC], p[P_E_INH], p[P_TAU_SYN_EXC], p[P_TAU_SYN_INH], clamped)
+
+
+@jit
+def rhs_cols(Y, P, lo, hi, clamped, F, k):
+    """Right-hand side of cells lo..hi-1 at once (structure of arrays).
+
+    ``Y``: (n_states, >= hi - lo), column ``i - lo`` for cell ``i``; writes ``F[k]``;
+    ``P``: (n_params, n_cells), column ``i``; ``clamped[i - lo]`` the clamp flag.
+    """
+    base = np.uint64(lo)
+    for j in range(np.uint64(hi - lo)):  # unsigned indices: no negative-index wraparound,
+        i = base + j                     # which would stop LLVM from vectorising the loop
+        F[k, S_V, j], F[k, S_G_EXC, j], F[k, S_G_INH, j] = _derivatives(
+            Y[S_V, j], Y[S_G_EXC, j], Y[S_G_INH, j], P[P_IEXT, i], P[P_C_M, i], P[P_TAU_M, i],
+            P[P_E_L, i], P[P_E_EXC, i], P[P_E_INH, i], P[P_TAU_SYN_EXC, i], P[P_TAU_SYN_INH, i],
+            clamped[j])
 
 
 @jit

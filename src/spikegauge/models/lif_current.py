@@ -24,7 +24,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .._numba import jit
+from .._numba import inline_jit, jit
 from .base import P_IEXT, P_TREF, P_VRESET, P_VTH, ModelSpec, ParamInfo
 
 CODE = 0
@@ -92,14 +92,34 @@ SPEC = ModelSpec(
 )
 
 
+@inline_jit
+def _derivatives(v, i_exc, i_inh, i_ext, c, tau_m, e_l, tau_exc, tau_inh, clamped):
+    """(dV/dt, di_exc/dt, di_inh/dt) from scalars; the one writing of the equations."""
+    dv = (e_l - v) / tau_m + (i_exc - i_inh + i_ext) / c
+    return 0.0 if clamped else dv, -i_exc / tau_exc, -i_inh / tau_inh
+
+
 @jit
 def rhs(y, p, clamped, dydt):
     """Right-hand side of one cell; see the module docstring. Writes dydt[0:3]."""
-    tau_m = p[P_TAU_M]
-    dv = (p[P_E_L] - y[S_V]) / tau_m + (y[S_I_EXC] - y[S_I_INH] + p[P_IEXT]) / p[P_C_M]
-    dydt[S_V] = 0.0 if clamped else dv
-    dydt[S_I_EXC] = -y[S_I_EXC] / p[P_TAU_SYN_EXC]
-    dydt[S_I_INH] = -y[S_I_INH] / p[P_TAU_SYN_INH]
+    dydt[S_V], dydt[S_I_EXC], dydt[S_I_INH] = _derivatives(
+        y[S_V], y[S_I_EXC], y[S_I_INH], p[P_IEXT], p[P_C_M], p[P_TAU_M], p[P_E_L],
+        p[P_TAU_SYN_EXC], p[P_TAU_SYN_INH], clamped)
+
+
+@jit
+def rhs_cols(Y, P, lo, hi, clamped, F, k):
+    """Right-hand side of cells lo..hi-1 at once (structure of arrays).
+
+    ``Y``: (n_states, >= hi - lo), column ``i - lo`` for cell ``i``; writes ``F[k]``;
+    ``P``: (n_params, n_cells), column ``i``; ``clamped[i - lo]`` the clamp flag.
+    """
+    base = np.uint64(lo)
+    for j in range(np.uint64(hi - lo)):  # unsigned indices: no negative-index wraparound,
+        i = base + j                     # which would stop LLVM from vectorising the loop
+        F[k, S_V, j], F[k, S_I_EXC, j], F[k, S_I_INH, j] = _derivatives(
+            Y[S_V, j], Y[S_I_EXC, j], Y[S_I_INH, j], P[P_IEXT, i], P[P_C_M, i], P[P_TAU_M, i],
+            P[P_E_L, i], P[P_TAU_SYN_EXC, i], P[P_TAU_SYN_INH, i], clamped[j])
 
 
 @jit
