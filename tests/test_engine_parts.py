@@ -116,3 +116,23 @@ def test_run_round_trip(tmp_path):
     assert back.group_names == ("E", "I")
     assert back.settings == run.settings and back.cost == run.cost and back.meta["seed"] == 4
     assert sorted(p.name for p in (tmp_path / "r").iterdir()) == ["run.json", "spikes.npz"]
+
+
+def test_small_linear_solve_matches_lapack():
+    """lu_factor / lu_solve (Newton steps of backward Euler and Rodas3) against
+    numpy.linalg.solve (LAPACK)."""
+    from spikegauge.integrate.linsolve import lu_factor, lu_solve
+
+    rng = np.random.default_rng(3)
+    for n in range(1, 7):
+        for _ in range(50):
+            A = rng.normal(size=(n, n)) + np.eye(n) * rng.uniform(0, 3)
+            b = rng.normal(size=n)
+            expected = np.linalg.solve(A, b)
+            M, x, piv = A.copy(), b.copy(), np.empty(n, dtype=np.int64)
+            assert lu_factor(M, piv, n)
+            lu_solve(M, piv, x, n)
+            np.testing.assert_allclose(x, expected, rtol=1e-9, atol=1e-12)
+    piv = np.empty(2, dtype=np.int64)
+    assert not lu_factor(np.array([[1.0, 2.0], [2.0, 4.0]]), piv, 2)
+    assert not lu_factor(np.array([[np.nan]]), piv, 1)

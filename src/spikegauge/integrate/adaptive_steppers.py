@@ -26,6 +26,7 @@ import numpy as np
 
 from .._numba import jit
 from ..models.kernels import jac, rhs
+from .linsolve import lu_factor, lu_solve
 from .tableaux import (BS32, BS32_A, BS32_B, BS32_E, DP54, DP54_A, DP54_B, DP54_DENSE_D, DP54_E,
                        RODAS3, RODAS3_A_T, RODAS3_C_T, RODAS3_E_T, RODAS3_GAMMA, RODAS3_M)
 
@@ -68,53 +69,6 @@ def _explicit_trial(A, B, E, code, y, p, clamped, h, n, K):
             acc += E[j] * K[j, q]
         K[ROW_ERR, q] = h * acc
     return s - 1
-
-
-@jit
-def lu_factor(M, piv, n):
-    """In-place LU with partial pivoting of ``M[:n, :n]``; False when singular."""
-    for k in range(n):
-        pk = k
-        big = abs(M[k, k])
-        for r in range(k + 1, n):
-            if abs(M[r, k]) > big:
-                big = abs(M[r, k])
-                pk = r
-        if not (big > 0.0) or not np.isfinite(big):
-            return False
-        piv[k] = pk
-        if pk != k:
-            for q in range(n):
-                tmp = M[k, q]
-                M[k, q] = M[pk, q]
-                M[pk, q] = tmp
-        for r in range(k + 1, n):
-            f = M[r, k] / M[k, k]
-            M[r, k] = f
-            for q in range(k + 1, n):
-                M[r, q] -= f * M[k, q]
-    return True
-
-
-@jit
-def lu_solve(M, piv, b, n):
-    """Solve with the factors of :func:`lu_factor`, overwriting ``b[:n]``."""
-    for k in range(n):
-        pk = piv[k]
-        if pk != k:
-            tmp = b[k]
-            b[k] = b[pk]
-            b[pk] = tmp
-    for r in range(n):
-        acc = b[r]
-        for q in range(r):
-            acc -= M[r, q] * b[q]
-        b[r] = acc
-    for r in range(n - 1, -1, -1):
-        acc = b[r]
-        for q in range(r + 1, n):
-            acc -= M[r, q] * b[q]
-        b[r] = acc / M[r, r]
 
 
 @jit

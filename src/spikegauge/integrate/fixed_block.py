@@ -29,6 +29,7 @@ number of threads, so results are bit-identical across thread counts.
 from __future__ import annotations
 
 import math
+import types
 
 import numba
 import numpy as np
@@ -106,14 +107,15 @@ def _scatter(c_lo, c_hi, n_cells, n0, n_total, dt, mask,
 def _advance_chunk(n0, n1, t_stop, dt, mask, stepper, crossing, t_first, t_last,
                    tile_code, tile_lo, tile_hi, tile_nst, Y, P, D, refr, div_time, div_code,
                    lower, upper, scale, rstate, ring, state_plane, current_plane,
-                   sp_step, sp_cell, sp_time, sp_at, cnt, X, XF, clamp, single):
+                   sp_step, sp_cell, sp_time, sp_at, cnt, X, XF, clamp, S1, J, spk1, ncount, cnt1):
     """Advance the cells of tiles t_first..t_last-1 over steps n0..n1-1.
 
     ``Y`` (n_states, n_cells) and ``P`` (n_params, n_cells) are the global state
     and parameters in structure-of-arrays form. ``X`` holds this thread's tile
     scratch (y0, stage input, new state), ``XF`` its stage derivatives (stage,
-    state, column), ``clamp`` the per-column clamp flag, ``single`` the
-    scratch of the single-cell step. Arrivals: ``ring[slot, q * n_cells + i]``
+    state, column), ``clamp`` the per-column clamp flag; ``S1`` (13 rows), ``J``,
+    ``spk1``, ``ncount`` and ``cnt1`` the scratch of the single-cell step (arrays,
+    not a tuple of views: a large tuple argument costs seconds of compile time). Arrivals: ``ring[slot, q * n_cells + i]``
     sums for ring plane ``q``; ``state_plane[code, s]`` is the plane that adds to state
     ``s`` (-1: none) and ``current_plane`` the one that adds to the external
     current (-1: none). Spikes go to ``sp_*[sp_at:]`` in (step, cell)
@@ -130,8 +132,21 @@ def _advance_chunk(n0, n1, t_stop, dt, mask, stepper, crossing, t_first, t_last,
     y0 = X[0]
     ys = X[1]
     yn = X[2]
-    (y1, p1, lo1, up1, sc1, f0, f1, f2, f3, s_ys, s_y0, f6, f7, J, spk1, ncount,
-     cnt1, empty_t, empty_i) = single
+    y1 = S1[0]
+    p1 = S1[1]
+    lo1 = S1[2]
+    up1 = S1[3]
+    sc1 = S1[4]
+    f0 = S1[5]
+    f1 = S1[6]
+    f2 = S1[7]
+    f3 = S1[8]
+    s_ys = S1[9]
+    s_y0 = S1[10]
+    f6 = S1[11]
+    f7 = S1[12]
+    empty_t = np.empty(0)
+    empty_i = np.empty(0, dtype=np.int64)
     for n in range(n0, n1):
         t_a = n * dt
         t_b = min((n + 1) * dt, t_stop)
@@ -330,7 +345,6 @@ def _advance_chunk(n0, n1, t_stop, dt, mask, stepper, crossing, t_first, t_last,
     return sp_at, n_div
 
 
-@pjit
 def _run_windows(w_edges, n_total, t_stop, dt, mask, stepper, crossing,
                  chunk_tiles, tile_code, tile_lo, tile_hi, tile_nst,
                  Y, P, D, refr, div_time, div_code, lower, upper, scale, rstate, ring,
@@ -354,8 +368,6 @@ def _run_windows(w_edges, n_total, t_stop, dt, mask, stepper, crossing,
     n_chunks = chunk_tiles.size - 1
     n_out = 0
     div_new = np.zeros(n_chunks, dtype=np.int64)
-    empty_t = np.empty(0)
-    empty_i = np.empty(0, dtype=np.int64)
     for w in range(w_edges.size - 1):
         if out_step.size - n_out < n_chunks * chunk_cap:
             return w, n_out
@@ -374,16 +386,13 @@ def _run_windows(w_edges, n_total, t_stop, dt, mask, stepper, crossing,
                                      drv_step, drv_cell, drv_offset, drv_weight, ring)
             counters[c, C_ARRIVALS] += added
             late[c] += n_late
-            single = (S1[c, 0], S1[c, 1], S1[c, 2], S1[c, 3], S1[c, 4], S1[c, 5], S1[c, 6],
-                      S1[c, 7], S1[c, 8], S1[c, 9], S1[c, 10], S1[c, 11], S1[c, 12], SJ[c],
-                      spk1[c], ncount[c], cnt1[c], empty_t, empty_i)
             at = c * chunk_cap
             end, div_new[c] = _advance_chunk(
                 n0, n1, t_stop, dt, mask, stepper, crossing, t_first, t_last,
                 tile_code, tile_lo, tile_hi, tile_nst, Y, P, D, refr, div_time, div_code,
                 lower, upper, scale, rstate, ring, state_plane, current_plane,
                 buf_step, buf_cell, buf_time, at, counters[c], X[c], XF[c],
-                clamp[c], single)
+                clamp[c], S1[c], SJ[c], spk1[c], ncount[c], cnt1[c])
             buf_n[c] = end - at
         # Merge the chunks' spikes in (step, cell) order: chunks hold consecutive cells.
         pos = np.zeros(n_chunks, dtype=np.int64)
@@ -403,9 +412,27 @@ def _run_windows(w_edges, n_total, t_stop, dt, mask, stepper, crossing,
                     n_out += 1
                     pos[c] += 1
         pend_n[0] = m
-        if late.sum() > 0 or div_new.sum() > 0:
+        stop = False
+        for c in range(n_chunks):
+            stop |= (late[c] > 0) | (div_new[c] > 0)
+        if stop:
             return w + 1, n_out
     return w_edges.size - 1, n_out
+
+
+def _twin(func, name):
+    """``func`` as a new function object named ``name`` (its own numba cache entry)."""
+    twin = types.FunctionType(func.__code__, func.__globals__, name, func.__defaults__,
+                              func.__closure__)
+    twin.__qualname__ = name
+    return twin
+
+
+_run_windows_parallel = pjit(_twin(_run_windows, "_run_windows_parallel"))
+_run_windows_serial = jit(_twin(_run_windows, "_run_windows_serial"))
+"""The window loop compiled twice: with parallel regions, and serial (``prange`` runs as
+``range``) for runs with one chunk of cells. The parallel build costs about 15 s more to
+compile, which a small network on one thread never needs."""
 
 
 class GridRun:
@@ -522,7 +549,8 @@ class GridRun:
             out_step = np.empty(self.out_cap, dtype=np.int64)
             out_cell = np.empty(self.out_cap, dtype=np.int64)
             out_time = np.empty(self.out_cap)
-            done, n_out = _run_windows(
+            loop = _run_windows_parallel if self.n_chunks > 1 else _run_windows_serial
+            done, n_out = loop(
                 edges, self.n_total, self.t_stop, self.dt, self.mask, self.stepper, self.crossing,
                 self.chunk_tiles, self.tile_code, self.tile_lo, self.tile_hi, self.tile_nst,
                 self.Y, self.P, self.D, self.state.refractory_until, self.state.div_time,

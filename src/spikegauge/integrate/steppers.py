@@ -20,6 +20,7 @@ import numpy as np
 
 from .._numba import inline_jit, jit
 from ..models.kernels import jac, rhs, split
+from .linsolve import lu_factor, lu_solve
 
 EULER = 0
 EXPEULER = 1
@@ -107,6 +108,7 @@ def _backward_euler(code, y, p, clamped, h, n, f0, f1, y0, have_f0, scale, J, ne
         y[s] = y[s] + h * f0[s]           # initial iterate
     A = np.empty((n, n))
     r = np.empty(n)
+    piv = np.empty(n, dtype=np.int64)
     for it in range(NEWTON_MAX_ITERS):
         rhs(code, y, p, clamped, f1)
         nf += 1
@@ -117,20 +119,17 @@ def _backward_euler(code, y, p, clamped, h, n, f0, f1, y0, have_f0, scale, J, ne
             for q in range(n):
                 A[s, q] = -h * J[s, q]
             A[s, s] += 1.0
-        for s in range(n):  # a blown-up iterate: LAPACK refuses non-finite input
-            if not np.isfinite(r[s]):
-                return -1
-            for q in range(n):
-                if not np.isfinite(A[s, q]):
-                    return -1
-        dz = np.linalg.solve(A, r)
+        if not lu_factor(A, piv, n):
+            return -1
+        lu_solve(A, piv, r, n)
         done = True
         for s in range(n):
-            if not np.isfinite(dz[s]):
+            if not np.isfinite(r[s]):
                 return -1
-            y[s] += dz[s]
-            if abs(dz[s]) > NEWTON_TOL * scale[s]:
+            y[s] += r[s]
+            if abs(r[s]) > NEWTON_TOL * scale[s]:
                 done = False
         if done:
             return nf
     return -1
+
