@@ -28,7 +28,7 @@ def model_params(model: str, n_cells: int, **overrides) -> np.ndarray:
 def hh_rest(v_mv: float = -65.0) -> np.ndarray:
     """hh-squid state with V = v_mv, gates at their steady values there, no conductance (SPEC.md)."""
     from spikegauge.models.hh_squid import _rates
-    am, bm, ah, bh, an, bn = _rates(v_mv)
+    am, bm, ah, bh, an, bn = _rates(v_mv, False)
     return np.array([v_mv, am / (am + bm), ah / (ah + bh), an / (an + bn), 0.0, 0.0])
 
 

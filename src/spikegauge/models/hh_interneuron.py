@@ -28,7 +28,6 @@ import numpy as np
 
 from .._numba import jit
 from .base import P_IEXT, P_TREF, P_VRESET, P_VTH, ModelSpec, ParamInfo
-from .fastexp import exp
 from .hh_squid import GATE_LOWER, GATE_UPPER, NEG_SCALES_ALLOWED, SYN_UPPER_SCALES, V_BOUND_MV, defun, efun
 
 CODE = 4
@@ -104,8 +103,8 @@ SPEC = ModelSpec(
 def _m_inf(v):
     """(m_inf, d m_inf / dV) of the instantaneous sodium activation."""
     x = (v + 35.0) / 10.0
-    am = efun(x)                                 # = 0.1 (V+35) / (1 - e^{-(V+35)/10})
-    bm = 4.0 * exp(-(v + 60.0) / 18.0)
+    am = efun(x, False)                          # = 0.1 (V+35) / (1 - e^{-(V+35)/10})
+    bm = 4.0 * math.exp(-(v + 60.0) / 18.0)
     s = am + bm
     dam = 0.1 * defun(x)
     dbm = -bm / 18.0
@@ -115,10 +114,10 @@ def _m_inf(v):
 @jit
 def _hn_rates(v):
     """(alpha_h, beta_h, alpha_n, beta_n) before the factor phi, 1/ms."""
-    ah = 0.07 * exp(-(v + 58.0) / 20.0)
-    bh = 1.0 / (1.0 + exp(-(v + 28.0) / 10.0))
-    an = 0.1 * efun((v + 34.0) / 10.0)           # = 0.01 (V+34) / (1 - e^{-(V+34)/10})
-    bn = 0.125 * exp(-(v + 44.0) / 80.0)
+    ah = 0.07 * math.exp(-(v + 58.0) / 20.0)
+    bh = 1.0 / (1.0 + math.exp(-(v + 28.0) / 10.0))
+    an = 0.1 * efun((v + 34.0) / 10.0, False)    # = 0.01 (V+34) / (1 - e^{-(V+34)/10})
+    bn = 0.125 * math.exp(-(v + 44.0) / 80.0)
     return ah, bh, an, bn
 
 

@@ -31,7 +31,7 @@ import math
 import numpy as np
 
 from .._numba import inline_jit, jit
-from .fastexp import exp
+from .fastexp import exp as vector_exp
 from .base import P_IEXT, P_TREF, P_VRESET, P_VTH, ModelSpec, ParamInfo
 
 CODE = 3
@@ -123,13 +123,17 @@ SPEC = ModelSpec(
 # Shared with hh_interneuron (same functional forms, shifted).
 
 @inline_jit
-def efun(x):
+def efun(x, vector):
     """x / (1 - exp(-x)), continuous through x = 0 (1 + x/2 for |x| < 1e-6).
 
     Both branches are computed and one selected (at x = 0 the quotient is NaN
-    and unused), so a loop over cells stays vectorisable.
+    and unused), so a loop over cells stays vectorisable. ``vector`` (a
+    constant at each call site) picks the exp: the vectorisable one in loops
+    over cells, the C library's in single-cell code, where it is faster (a
+    scalar call is not latency-bound on a long polynomial) and compiles quicker.
     """
-    q = x / (1.0 - exp(-x))
+    e = vector_exp(-x) if vector else math.exp(-x)
+    q = x / (1.0 - e)
     return 1.0 + 0.5 * x if abs(x) < 1e-6 else q
 
 
@@ -143,7 +147,7 @@ def defun(x):
     """
     if abs(x) < 1e-3:
         return 0.5 + x / 6.0 - x * x * x / 180.0
-    e = exp(-x)
+    e = math.exp(-x)
     d = 1.0 - e
     return (1.0 - e * (1.0 + x)) / (d * d)
 
@@ -152,21 +156,27 @@ def defun(x):
 def temperature_factor(temperature_c):
     """phi = Q10 ** ((T - 6.3) / 10): multiplies every gating rate.
 
-    As exp(ln(Q10) (T - 6.3) / 10) with the vectorisable exp: a power is a
-    libm call costing as much as the rest of a right-hand side.
+    As exp(ln(Q10) (T - 6.3) / 10): a power costs several exponentials.
     """
-    return exp(LN_Q10 * ((temperature_c - T_BASE_C) / 10.0))
+    return math.exp(LN_Q10 * ((temperature_c - T_BASE_C) / 10.0))
 
 
 @inline_jit
-def _rates(v):
-    """(alpha_m, beta_m, alpha_h, beta_h, alpha_n, beta_n) at 6.3 deg C, 1/ms."""
-    am = efun((v + 40.0) / 10.0)                 # = 0.1 (V+40) / (1 - e^{-(V+40)/10})
-    bm = 4.0 * exp(-(v + 65.0) / 18.0)
-    ah = 0.07 * exp(-(v + 65.0) / 20.0)
-    bh = 1.0 / (1.0 + exp(-(v + 35.0) / 10.0))
-    an = 0.1 * efun((v + 55.0) / 10.0)           # = 0.01 (V+55) / (1 - e^{-(V+55)/10})
-    bn = 0.125 * exp(-(v + 65.0) / 80.0)
+def _rates(v, vector):
+    """(alpha_m, beta_m, alpha_h, beta_h, alpha_n, beta_n) at 6.3 deg C, 1/ms.
+
+    ``vector``: use the vectorisable exp (see :func:`efun`).
+    """
+    e_m = vector_exp(-(v + 65.0) / 18.0) if vector else math.exp(-(v + 65.0) / 18.0)
+    e_h = vector_exp(-(v + 65.0) / 20.0) if vector else math.exp(-(v + 65.0) / 20.0)
+    e_b = vector_exp(-(v + 35.0) / 10.0) if vector else math.exp(-(v + 35.0) / 10.0)
+    e_n = vector_exp(-(v + 65.0) / 80.0) if vector else math.exp(-(v + 65.0) / 80.0)
+    am = efun((v + 40.0) / 10.0, vector)         # = 0.1 (V+40) / (1 - e^{-(V+40)/10})
+    bm = 4.0 * e_m
+    ah = 0.07 * e_h
+    bh = 1.0 / (1.0 + e_b)
+    an = 0.1 * efun((v + 55.0) / 10.0, vector)   # = 0.01 (V+55) / (1 - e^{-(V+55)/10})
+    bn = 0.125 * e_n
     return am, bm, ah, bh, an, bn
 
 
@@ -197,9 +207,9 @@ def _voltage_derivative(v, m, h, n, g_e, g_i, i_ext, c, g_na_max, g_k_max, g_l, 
 
 
 @inline_jit
-def _gate_derivatives(v, m, h, n, phi):
-    """(dm, dh, dn)/dt (1/ms) from scalars."""
-    am, bm, ah, bh, an, bn = _rates(v)
+def _gate_derivatives(v, m, h, n, phi, vector):
+    """(dm, dh, dn)/dt (1/ms) from scalars; ``vector`` as in :func:`efun`."""
+    am, bm, ah, bh, an, bn = _rates(v, vector)
     return (phi * (am * (1.0 - m) - bm * m),
             phi * (ah * (1.0 - h) - bh * h),
             phi * (an * (1.0 - n) - bn * n))
@@ -213,7 +223,7 @@ def rhs(y, p, clamped, dydt):
         v, y[S_M], y[S_H], y[S_N], y[S_G_EXC], y[S_G_INH], p[P_IEXT], p[P_C_M], p[P_G_NA],
         p[P_G_K], p[P_G_L], p[P_E_NA], p[P_E_K], p[P_E_L], p[P_E_EXC], p[P_E_INH], clamped)
     dydt[S_M], dydt[S_H], dydt[S_N] = _gate_derivatives(
-        v, y[S_M], y[S_H], y[S_N], temperature_factor(p[P_TEMPERATURE]))
+        v, y[S_M], y[S_H], y[S_N], temperature_factor(p[P_TEMPERATURE]), False)
     dydt[S_G_EXC] = -y[S_G_EXC] / p[P_TAU_SYN_EXC]
     dydt[S_G_INH] = -y[S_G_INH] / p[P_TAU_SYN_INH]
 
@@ -252,7 +262,7 @@ def rhs_cols(Y, P, D, lo, hi, clamped, F, k):
             P[P_E_K, i], P[P_E_L, i], P[P_E_EXC, i], P[P_E_INH, i], clamped[j])
     for j in range(m):
         F[k, S_M, j], F[k, S_H, j], F[k, S_N, j] = _gate_derivatives(
-            Y[S_V, j], Y[S_M, j], Y[S_H, j], Y[S_N, j], D[D_PHI, base + j])
+            Y[S_V, j], Y[S_M, j], Y[S_H, j], Y[S_N, j], D[D_PHI, base + j], True)
     for j in range(m):
         i = base + j
         F[k, S_G_EXC, j] = -Y[S_G_EXC, j] / P[P_TAU_SYN_EXC, i]
@@ -280,7 +290,7 @@ def jac(y, p, clamped, J):
     J[0, 4] = on_c * (p[P_E_EXC] - v)
     J[0, 5] = on_c * (p[P_E_INH] - v)
     phi = temperature_factor(p[P_TEMPERATURE])
-    am, bm, ah, bh, an, bn = _rates(v)
+    am, bm, ah, bh, an, bn = _rates(v, False)
     dam, dbm, dah, dbh, dan, dbn = _rate_derivatives(v, bm, ah, bh, bn)
     for i in range(1, 6):
         for k in range(1, 6):
@@ -320,7 +330,7 @@ def split(y, p, clamped, a, b):
                      + g_e * p[P_E_EXC] + g_i * p[P_E_INH])
     b[S_V] = -on_c * (g_na + g_k + g_l + g_e + g_i)
     phi = temperature_factor(p[P_TEMPERATURE])
-    am, bm, ah, bh, an, bn = _rates(v)
+    am, bm, ah, bh, an, bn = _rates(v, False)
     a[S_M] = phi * am
     b[S_M] = -phi * (am + bm)
     a[S_H] = phi * ah
