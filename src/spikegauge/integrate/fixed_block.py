@@ -38,7 +38,7 @@ from .._numba import jit, pjit
 from ..models import receptor_state_table, state_bounds
 from ..models.base import P_IEXT, P_TREF, P_VRESET, P_VTH, RECEPTOR_CURRENT
 from ..models.kernels import N_DERIVED, derive_cols, reset, rhs_cols
-from .crossing import CROSS_HERMITE, CROSS_LINEAR, CROSS_STEP, hermite_first_crossing, linear_crossing
+from .crossing import CROSS_HERMITE, CROSS_STEP, hermite_first_crossing, linear_crossing
 from .engine import C_ARRIVALS, C_NEWTON, C_RHS, C_STEPS, DIV_BOUNDS, DIV_MESSAGES, N_COUNTERS
 from .fixed import MAX_RESETS_PER_STEP, SNAP_MS, _fixed_cell, _snap, grid_indices
 from .steppers import EULER, RK2, RK4
@@ -49,8 +49,6 @@ TILE = 256
 MAX_WINDOW_SPIKE_SLOTS = 1 << 21
 """Upper bound on (cells x window steps x spikes per step) slots of one window's spike buffer."""
 
-BULK_STAGES = {EULER: 1, RK2: 2, RK4: 4}
-"""Right-hand-side evaluations per step of the steppers with a block form."""
 
 @jit
 def grid_index(t, dt):
@@ -115,11 +113,13 @@ def _advance_chunk(n0, n1, t_stop, dt, mask, stepper, crossing, t_first, t_last,
     scratch (y0, stage input, new state), ``XF`` its stage derivatives (stage,
     state, column), ``clamp`` the per-column clamp flag; ``S1`` (13 rows), ``J``,
     ``spk1``, ``ncount`` and ``cnt1`` the scratch of the single-cell step (arrays,
-    not a tuple of views: a large tuple argument costs seconds of compile time). Arrivals: ``ring[slot, q * n_cells + i]``
-    sums for ring plane ``q``; ``state_plane[code, s]`` is the plane that adds to state
-    ``s`` (-1: none) and ``current_plane`` the one that adds to the external
-    current (-1: none). Spikes go to ``sp_*[sp_at:]`` in (step, cell)
-    order. Returns (the new ``sp_at``, cells that diverged).
+    not a tuple of views: a large tuple argument costs seconds of compile time).
+
+    Arrivals: ``ring[slot, q * n_cells + i]`` sums for ring plane ``q``;
+    ``state_plane[code, s]`` is the plane that adds to state ``s`` (-1: none)
+    and ``current_plane`` the one that adds to the external current (-1: none).
+    Spikes go to ``sp_*[sp_at:]`` in (step, cell) order. Returns (the new
+    ``sp_at``, cells that diverged).
     """
     width = Y.shape[0]
     n_par = P.shape[0]

@@ -111,10 +111,12 @@ def rhs_cols(code, Y, P, D, lo, hi, n_states, clamped, F, k):
     """Right-hand side of cells lo..hi-1, all of model ``code``, in structure-of-arrays form.
 
     ``Y`` is (>= n_states, >= hi - lo) with column ``i - lo`` for cell ``i``;
-    the derivatives go to ``F[k, :n_states, :hi - lo]``; ``P`` (n_params, n_cells) and ``D`` (N_DERIVED, n_cells) are indexed by
-    ``i``; ``clamped[i - lo]`` is the clamp flag. Models with a column form run
-    it as one loop that LLVM vectorises; the others go cell by cell through
-    :func:`rhs` (same numbers, scalar speed).
+    the derivatives go to ``F[k, :n_states, :hi - lo]``; ``P`` (n_params,
+    n_cells) and ``D`` (N_DERIVED, n_cells) are indexed by ``i``;
+    ``clamped[i - lo]`` is the clamp flag. Models with a column form run it as
+    loops that LLVM vectorises (same formulas as :func:`rhs`; hh-squid's
+    exponentials may differ from it in the last bit); the others go cell by
+    cell through :func:`rhs`.
     """
     if code == 0:
         lif_current.rhs_cols(Y, P, lo, hi, clamped, F, k)
