@@ -16,7 +16,7 @@ without (Hodgkin-Huxley) just records the spike.
 import numba
 import numpy as np
 
-from .._numba import jit, pjit
+from .._numba import inline_jit, jit, pjit
 from ..models.base import P_TREF, P_VRESET, P_VTH
 from ..models.kernels import reset, rhs
 from .adaptive_steppers import (DENSE_DEGREE, F1_ROW, N_ROWS, ROW_DENSE, ROW_ERR, ROW_Y1,
@@ -30,7 +30,7 @@ from .step_control import (error_norm, initial_step, next_step_accepted, next_st
 
 
 
-@jit
+@inline_jit
 def record_step(slot, t, h, accepted, tr_time, tr_h, tr_acc, tr_count):
     """Append (t, h, accepted) to trace row ``slot`` (no-op for slot < 0); counts past capacity."""
     if slot < 0:

@@ -13,7 +13,7 @@ beta = 0.04, no growth right after a rejection.
 """
 import numpy as np
 
-from .._numba import jit
+from .._numba import inline_jit, jit
 from ..models.kernels import rhs
 
 SAFETY = 0.9
@@ -24,7 +24,7 @@ ERR_PREV_FLOOR = 1e-4
 """Floor of the remembered error (Hairer's DOPRI5 uses the same 1e-4)."""
 
 
-@jit
+@inline_jit
 def error_norm(y0, y1, err, n, rtol, atol, scale, pzero):
     """Weighted RMS norm of ``err[:n]``; ``pzero[i]`` is 1.0 where the relative part applies."""
     acc = 0.0
