@@ -37,6 +37,11 @@ def test_bench_quick_json_keys_and_figures():
     # Determinism (DESIGN.md): the thread count never changes a spike.
     assert out["details"]["lif"]["identical_across_threads"]
     assert out["details"]["hh"]["identical_across_threads"]
+    # Scaling exponents are fitted on four sizes each (their values are the benchmark's business).
+    scaling = out["details"]["scaling"]
+    assert len(scaling["cells"]) == 4 and scaling["cells"] == sorted(scaling["cells"])
+    assert math.isfinite(scaling["exponent_cells"]) and scaling["exponent_cells"] > 0
+    assert math.isfinite(scaling["exponent_duration"]) and scaling["exponent_duration"] > 0
     # The adaptive run that is reported is the one that met the error target.
     if out["single_hh_adaptive_err_ms"] is not None:
         assert out["single_hh_adaptive_err_ms"] <= SINGLE_HH_ERR_TARGET_MS

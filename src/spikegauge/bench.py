@@ -335,6 +335,48 @@ LIF_SETTINGS = dict(stepper="euler", crossing="step", delivery="grid", dt_ms=0.1
 HH_SETTINGS = dict(stepper="rk4", crossing="linear", delivery="grid", dt_ms=0.01)
 
 
+def scaling_bench(quick: bool) -> dict:
+    """Exponents of bench-lif's loop time in cells and in duration (one thread).
+
+    Four sizes each (cells x1/4..x2 of bench-lif at half its duration; 1/4..2x
+    its duration at its size), median of three runs; the exponent is the slope
+    of log time against log size (target 1.0 +- 0.1).
+    """
+    from .network import build_network
+    from .scenario import parse_scenario
+    from .simulation import simulate
+
+    text = (scenario_dir() / "bench-lif.toml").read_text()
+    text = text.replace("size = 4000", "size = EXC").replace("size = 1000", "size = INH")
+    factors = (0.25, 0.5, 1.0, 2.0)
+    scale = 0.1 if quick else 1.0
+
+    def network(f_cells, duration):
+        sized = (text.replace("size = EXC", f"size = {int(4000 * f_cells * scale)}")
+                 .replace("size = INH", f"size = {int(1000 * f_cells * scale)}")
+                 .replace("duration_ms = 1000.0", f"duration_ms = {duration}"))
+        return build_network(parse_scenario(sized, source="bench-lif (scaling)"))
+
+    def loop_s(net, t_stop):
+        runs = [simulate(net, threads=1, t_stop_ms=t_stop, **LIF_SETTINGS).cost["wall_s"]
+                for _ in range(3)]
+        return statistics.median(runs)
+
+    base_ms = 50.0 if quick else 1000.0
+    cells, t_cells = [], []
+    for f in factors:
+        net = network(f, base_ms / 2)
+        cells.append(net.n_cells)
+        t_cells.append(loop_s(net, base_ms / 2))
+    net = network(1.0, 2 * base_ms)
+    durations = [f * base_ms for f in factors]
+    t_dur = [loop_s(net, d) for d in durations]
+    return {"cells": cells, "cells_loop_s": t_cells, "exponent_cells":
+            float(np.polyfit(np.log(cells), np.log(t_cells), 1)[0]),
+            "duration_ms": durations, "duration_loop_s": t_dur, "exponent_duration":
+            float(np.polyfit(np.log(durations), np.log(t_dur), 1)[0])}
+
+
 def advise_bench(quick: bool) -> tuple[float | None, str, dict]:
     """The advice's predicted wall time over the measured one, for 2x the cells and 2x the duration.
 
@@ -454,6 +496,9 @@ def run_bench(quick: bool = False, reps: int | None = None, log=None) -> dict:
         out["compile_s"] = lif["warmup_s"] + hh["warmup_s"]
         details["compile_kind"] = "warm-up runs in this process (numba cache as found)"
 
+    say("scaling ...")
+    details["scaling"] = scaling_bench(quick)
+
     say("advice ...")
     out["advise_wall_ratio"], reason, details["advice"] = advise_bench(quick)
     if out["advise_wall_ratio"] is None:
@@ -493,6 +538,9 @@ def format_report(res: dict) -> str:
                  f"elephant (extrapolated) {f(res['elephant_van_rossum_1e6_s'])} s")
     lines.append(f"compile {f(res['compile_s'])} s ({d['compile_kind']}); RSS baseline "
                  f"{f(res['baseline_rss_mb'])} MB, growth during bench-lif {f(res['rss_growth_mb'])} MB")
+    sc = d["scaling"]
+    lines.append(f"bench-lif scaling exponents (target 1.0 +- 0.1): cells "
+                 f"{sc['exponent_cells']:.3f}, duration {sc['exponent_duration']:.3f}")
     lines.append(f"advice wall-time ratio: {f(res['advise_wall_ratio'])}")
     for key, why in d["reasons"].items():
         lines.append(f"  {key}: n/a - {why}")
