@@ -427,6 +427,18 @@ class WindowLoopResult:
     wall_s: float = 0.0
 
 
+def divergence(state: CellState, times: np.ndarray) -> tuple[np.ndarray, float, str]:
+    """The earliest divergence: (mask of the spike ``times`` up to it, its time, the message).
+
+    The cell named is the first in cell order among those that diverged earliest.
+    """
+    i = int(np.argmin(state.div_time))
+    t_div = float(state.div_time[i])
+    message = (f"diverged at t = {t_div:.6g} ms (cell {i}: "
+               f"{DIV_MESSAGES.get(int(state.div_code[i]), 'unknown')})")
+    return times <= t_div, t_div, message
+
+
 def default_boundaries(d_min_ms: float, t_stop_ms: float) -> np.ndarray:
     """Window edges of length ``min(d_min, MAX_WINDOW_MS)``, ending exactly at ``t_stop_ms``."""
     w = min(d_min_ms, MAX_WINDOW_MS, t_stop_ms)
@@ -508,14 +520,10 @@ def run_windows(network, kernel, t_stop_ms: float, state: CellState | None = Non
             counters[:] = counters_before
         cells, times = spikes.collect()
         if np.isfinite(state.div_time).any():
-            i = int(np.argmin(state.div_time))  # first cell in cell order at the earliest time
-            t_div = float(state.div_time[i])
-            keep = times <= t_div
+            keep, t_reached, message = divergence(state, times)
             out_cells.append(cells[keep])
             out_times.append(times[keep])
-            status, t_reached = "diverged", t_div
-            message = (f"diverged at t = {t_div:.6g} ms (cell {i}: "
-                       f"{DIV_MESSAGES.get(int(state.div_code[i]), 'unknown')})")
+            status = "diverged"
             break
         out_cells.append(cells)
         out_times.append(times)

@@ -39,7 +39,7 @@ from ..models import receptor_state_table, state_bounds
 from ..models.base import P_IEXT, P_TREF, P_VRESET, P_VTH, RECEPTOR_CURRENT
 from ..models.kernels import N_DERIVED, derive_cols, reset, rhs_cols
 from .crossing import CROSS_HERMITE, CROSS_STEP, hermite_first_crossing, linear_crossing
-from .engine import C_ARRIVALS, C_NEWTON, C_RHS, C_STEPS, DIV_BOUNDS, DIV_MESSAGES, N_COUNTERS
+from .engine import C_ARRIVALS, C_NEWTON, C_RHS, C_STEPS, DIV_BOUNDS, N_COUNTERS, divergence
 from .fixed import MAX_RESETS_PER_STEP, SNAP_MS, _fixed_cell, _snap, grid_indices
 from .steppers import EULER, RK2, RK4
 
@@ -624,14 +624,10 @@ def run_grid(kernel, network, t_stop_ms, state, progress=None, on_window=None, e
             raise ComputationError("an arrival reached a cell after the step it was due in: the "
                                    "windows are longer than the smallest delay")
         if outcome == "diverged":
-            i = int(np.argmin(state.div_time))
-            t_div = float(state.div_time[i])
-            keep = times <= t_div
+            keep, t_reached, message = divergence(state, times)
             out_cells.append(cells[keep])
             out_times.append(times[keep])
-            status, t_reached = "diverged", t_div
-            message = (f"diverged at t = {t_div:.6g} ms (cell {i}: "
-                       f"{DIV_MESSAGES.get(int(state.div_code[i]), 'unknown')})")
+            status = "diverged"
             break
         out_cells.append(cells)
         out_times.append(times)
