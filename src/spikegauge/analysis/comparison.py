@@ -79,11 +79,16 @@ class Comparison:
 
     def to_json(self, path=None, indent: int = 1) -> str:
         """JSON text of :meth:`to_dict` (NaN written as null); also written to ``path`` if given."""
-        text = json.dumps(self.to_dict(), indent=indent, allow_nan=False)
-        if path is not None:
-            with open(path, "w", encoding="utf-8") as fh:
-                fh.write(text + "\n")
-        return text
+        return _json_text(self.to_dict(), path, indent)
+
+
+def _json_text(data, path, indent: int) -> str:
+    """JSON text of JSON-ready ``data``; also written to ``path`` if given."""
+    text = json.dumps(data, indent=indent, allow_nan=False)
+    if path is not None:
+        with open(path, "w", encoding="utf-8") as fh:
+            fh.write(text + "\n")
+    return text
 
 
 def jsonable(value):
@@ -326,11 +331,7 @@ class ComparisonSet:
 
     def to_json(self, path=None, indent: int = 1) -> str:
         """JSON text of :meth:`to_dict` (NaN written as null); also written to ``path`` if given."""
-        text = json.dumps(self.to_dict(), indent=indent, allow_nan=False)
-        if path is not None:
-            with open(path, "w", encoding="utf-8") as fh:
-                fh.write(text + "\n")
-        return text
+        return _json_text(self.to_dict(), path, indent)
 
 
 def pareto_front(cost: np.ndarray, error: np.ndarray) -> np.ndarray:

@@ -43,14 +43,28 @@ declared diverged: a cell firing this often within one step is not resolved by t
 all. Splits at arrivals are bounded by the arrivals and not counted."""
 
 
-def grid_indices(time_ms: np.ndarray, dt_ms: float) -> np.ndarray:
-    """Index ``n`` of the first grid point ``n * dt`` at or after each time (within SNAP_MS
-    of a grid point counts as on it); int64."""
-    t = np.asarray(time_ms, dtype=np.float64)
-    s = t / dt_ms
+@jit
+def grid_index(t, dt):
+    """Index of the first grid point ``k * dt`` at or after ``t`` (within SNAP_MS counts as on it)."""
+    s = t / dt
     r = np.floor(s + 0.5)
-    on = np.abs(t - r * dt_ms) <= SNAP_MS
-    return np.where(on, r, np.ceil(s)).astype(np.int64)
+    if abs(t - r * dt) <= SNAP_MS:
+        return np.int64(r)
+    return np.int64(np.ceil(s))
+
+
+@jit
+def _grid_index_each(times, dt, out):
+    for k in range(times.size):
+        out[k] = grid_index(times[k], dt)
+
+
+def grid_indices(time_ms: np.ndarray, dt_ms: float) -> np.ndarray:
+    """:func:`grid_index` of each time; int64, the shape of ``time_ms``."""
+    t = np.asarray(time_ms, dtype=np.float64)
+    out = np.empty(t.size, dtype=np.int64)
+    _grid_index_each(np.ascontiguousarray(t).ravel(), float(dt_ms), out)
+    return out.reshape(t.shape)
 
 
 def grid_time(time_ms: np.ndarray, dt_ms: float) -> np.ndarray:

@@ -40,7 +40,7 @@ from ..models.base import P_IEXT, P_TREF, P_VRESET, P_VTH, RECEPTOR_CURRENT
 from ..models.kernels import N_DERIVED, derive_cols, reset, rhs_cols
 from .crossing import CROSS_HERMITE, CROSS_STEP, hermite_first_crossing, linear_crossing
 from .engine import C_ARRIVALS, C_NEWTON, C_RHS, C_STEPS, DIV_BOUNDS, N_COUNTERS, divergence
-from .fixed import MAX_RESETS_PER_STEP, SNAP_MS, _fixed_cell, _snap, grid_indices
+from .fixed import MAX_RESETS_PER_STEP, _fixed_cell, _snap, grid_index, grid_indices
 from .steppers import EULER, RK2, RK4
 
 TILE = 256
@@ -48,16 +48,6 @@ TILE = 256
 
 MAX_WINDOW_SPIKE_SLOTS = 1 << 21
 """Upper bound on (cells x window steps x spikes per step) slots of one window's spike buffer."""
-
-
-@jit
-def grid_index(t, dt):
-    """Index of the first grid point ``k * dt`` at or after ``t`` (within SNAP_MS counts as on it)."""
-    s = t / dt
-    r = math.floor(s + 0.5)
-    if abs(t - r * dt) <= SNAP_MS:
-        return np.int64(r)
-    return np.int64(math.ceil(s))
 
 
 @jit
