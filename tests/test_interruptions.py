@@ -25,6 +25,7 @@ import pandas as pd
 import pytest
 
 from spikegauge.runs import load_run
+from spikegauge.profile.results import TIME_COLUMNS  # the only machine-dependent columns
 
 SCENARIO = """
 [scenario]
@@ -87,7 +88,6 @@ weight_pa = 30.0
 # The command line as a user runs it: what the spikegauge console script calls, run by
 # this interpreter so the test does not depend on PATH.
 COMMAND = [sys.executable, "-c", "from spikegauge.cli import main; main()"]
-WALL_COLUMNS = ("wall_s", "compile_s")      # the only machine-dependent columns (profile/runner.py)
 TIMEOUT_S = 300
 
 
@@ -149,7 +149,7 @@ def _all_stored_files_load(out: Path) -> int:
 
 
 def _results(out: Path) -> pd.DataFrame:
-    return pd.read_csv(out / "results.csv").drop(columns=list(WALL_COLUMNS))
+    return pd.read_csv(out / "results.csv").drop(columns=list(TIME_COLUMNS))
 
 
 @pytest.fixture(scope="module")

@@ -35,9 +35,13 @@ def test_report_numbers_match_the_results(tmp_path):
     doc = json.loads((out / "profile.json").read_text())
     assert (table["status"] == "ok").all(), table[["label", "status", "message"]].to_string()
     figures = sorted(p.name for p in (out / "figures").glob("*.png"))
-    assert {"front.png", "convergence.png", "raster_recommended.png", "raster_cheapest_fixed_step.png",
+    assert {"front.png", "front_work.png", "convergence.png", "raster_recommended.png",
             "error_growth.png", "steps_local-adaptive.png", "steps_global-adaptive.png",
             "steps_vs_rate.png"} <= set(figures)
+    # the raster of the best fixed step is the verdict's, not merely the coarsest one
+    best_fixed = doc["verdict"]["cheapest"].get("fixed")
+    shows_fixed = best_fixed is not None and best_fixed["point"] != doc["verdict"]["recommended"]["point"]
+    assert ("raster_best_fixed_step.png" in figures) == shows_fixed
     # self-contained: every figure embedded, no external file referenced
     assert page.count("src='data:image/png;base64,") == len(figures)
     assert "src='figures/" not in page
@@ -55,8 +59,9 @@ def test_report_numbers_match_the_results(tmp_path):
     for strategy, c in doc["verdict"]["cheapest"].items():
         r = table.loc[c["point"]]
         assert rows[strategy][1] == r["label"]
-        assert rows[strategy][3:8] == [fmt(r["work"]), fmt(r["wall_s"]), fmt(r["target_shift_rms_ms"]),
-                                       fmt(r["target_mismatch_fraction"]), fmt(r["steps_per_cell_ms"])]
+        assert rows[strategy][3:9] == [fmt(r["cpu_s"]), fmt(r["work"]), fmt(1e6 * r["cpu_s"] / r["steps"]),
+                                       fmt(r["target_shift_rms_ms"]), fmt(r["target_mismatch_fraction"]),
+                                       fmt(r["steps_per_cell_ms"])]
     # the reference's uncertainty and the horizons as profile.json has them
     u = doc["references"][0]["uncertainty"]
     assert f"RMS {fmt(u['shift_rms_ms'])} ms" in md

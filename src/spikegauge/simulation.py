@@ -4,6 +4,8 @@ from __future__ import annotations
 import hashlib
 import math
 import platform
+import threading
+import time
 from functools import partial
 from pathlib import Path
 
@@ -152,6 +154,7 @@ def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, d
     Run
     """
     scen, network = _as_scenario(scenario)
+    cpu_start = time.process_time()
     settings = resolve_settings(scen, strategy, stepper, dt_ms, crossing, delivery, rtol, atol)
     t_stop = float(network.t_stop_ms if t_stop_ms is None else t_stop_ms)
     if not (t_stop > 0 and math.isfinite(t_stop)):
@@ -166,32 +169,38 @@ def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, d
     if threads is not None and not 1 <= int(threads) <= numba.config.NUMBA_NUM_THREADS:
         raise InputError(f"threads: must be between 1 and {numba.config.NUMBA_NUM_THREADS}, got {threads}")
     threads_before = numba.get_num_threads()
-    try:
-        if threads is not None:
-            numba.set_num_threads(int(threads))
-        kernel = make_kernel(network, settings, auto_scale=auto_scale, record_steps=record_steps)
-        state = CellState.initial(network, getattr(kernel, "scale_table", None))
-        compile_s = warm_up(kernel, state, network)
-        recorder = _TraceRecorder(network, record_cells, record_interval_ms, kernel) \
-            if record_cells is not None else None
-        run = getattr(kernel, "run", None)
-        if run is None:
-            run = partial(run_windows, network, kernel)
-        else:
-            run = partial(run, network)
-        result = run(t_stop, state=state, progress=progress,
-                     extra_edges=None if recorder is None else recorder.times(t_stop),
-                     on_window=None if recorder is None else recorder)
-        n_threads = numba.get_num_threads()
-    finally:
-        numba.set_num_threads(threads_before)
+    with CompileTimer() as compiling:
+        try:
+            if threads is not None:
+                numba.set_num_threads(int(threads))
+            kernel = make_kernel(network, settings, auto_scale=auto_scale, record_steps=record_steps)
+            state = CellState.initial(network, getattr(kernel, "scale_table", None))
+            warm_up(kernel, state, network)
+            recorder = _TraceRecorder(network, record_cells, record_interval_ms, kernel) \
+                if record_cells is not None else None
+            run = getattr(kernel, "run", None)
+            if run is None:
+                run = partial(run_windows, network, kernel)
+            else:
+                run = partial(run, network)
+            result = run(t_stop, state=state, progress=progress,
+                         extra_edges=None if recorder is None else recorder.times(t_stop),
+                         on_window=None if recorder is None else recorder)
+            n_threads = numba.get_num_threads()
+        finally:
+            numba.set_num_threads(threads_before)
     order = np.lexsort((result.cell, result.time_ms))
     spikes = pd.DataFrame({"cell": result.cell[order].astype(np.int64),
                            "time_ms": result.time_ms[order].astype(np.float64)})
+    # What a user pays for this run: process CPU time (every thread, so work done by a pool
+    # thread counts too) from the settings to the spikes, less compiling and loading kernels.
+    compile_s = compiling.seconds
+    cpu_s = max(time.process_time() - cpu_start - compile_s, 0.0)
     settings = dict(settings, threads=n_threads)
     if auto_scale and hasattr(kernel, "scale_used"):
         settings["scale_used"] = kernel.scale_used
-    cost = dict(result.counters, wall_s=result.wall_s, compile_s=compile_s, spikes=int(len(spikes)),
+    cost = dict(result.counters, wall_s=result.wall_s, cpu_s=cpu_s, compile_s=compile_s,
+                spikes=int(len(spikes)),
                 cell_steps_per_s=result.counters["steps"] / result.wall_s if result.wall_s > 0 else None)
     return Run(
         spikes=spikes, n_cells=network.n_cells, t_start_ms=0.0, t_stop_ms=result.t_reached_ms,
@@ -203,14 +212,54 @@ def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, d
     )
 
 
+class CompileTimer:
+    """Process CPU seconds numba spends compiling or loading kernels in this thread while active.
+
+    Counts the time under numba's compiler lock (nested compilations once), so
+    kernels compiled lazily anywhere in a run, not only in the warm-up, are left
+    out of the run's CPU time. CPU time, not wall time, so that subtracting it
+    stays right on a busy machine; compilations in other threads (another run of
+    an in-process Dask worker, say) are not counted.
+    """
+
+    def __init__(self):
+        from numba.core import event
+
+        owner, timer = threading.get_ident(), self
+
+        class _ThisThread(event.Listener):
+            def on_start(self, ev):
+                if threading.get_ident() == owner:
+                    if timer._depth == 0:
+                        timer._started = time.process_time()
+                    timer._depth += 1
+
+            def on_end(self, ev):
+                if threading.get_ident() == owner:
+                    timer._depth -= 1
+                    if timer._depth == 0:
+                        timer.seconds += time.process_time() - timer._started
+
+        self.seconds = 0.0
+        self._depth = 0
+        self._started = 0.0
+        self._install = event.install_listener("numba:compiler_lock", _ThisThread())
+
+    def __enter__(self):
+        self._install.__enter__()
+        return self
+
+    def __exit__(self, *exc):
+        self._install.__exit__(*exc)
+        return False
+
+
 def warm_up(kernel, state, network=None) -> float:
     """Compile (or load from the disk cache) the kernel with a zero-length window.
 
     The state is restored afterwards, so the run is unchanged; the returned
     seconds are what the run's loop time leaves out.
     """
-    import time
-
     n = state.code.size
     if network is not None and hasattr(kernel, "warm_up"):
         tic = time.perf_counter()

@@ -7,25 +7,35 @@ from .main import cli
 
 
 class _Bar:
-    """Adapts the profile's progress calls to a click progress bar."""
+    """Adapts the profile's progress calls to a click progress bar on a terminal, and to one
+    plain line per finished run ("12/76 fixed rk4 dt=0.05 hermite/exact") elsewhere (a log
+    file, a batch job's output)."""
 
     def __init__(self, quiet: bool):
         self.quiet = quiet
         self.bar = None
+        self.stream = click.get_text_stream("stderr")
+        self.lines = not self.stream.isatty()
+        self.done = 0
+        self.length = 0
 
     def total(self, n: int):
-        if self.quiet:
+        self.length = n
+        if self.quiet or self.lines:
             return
         if self.bar is None:
-            self.bar = click.progressbar(length=n, label="points", show_eta=True, show_pos=True,
-                                         item_show_func=lambda item: item, file=click.get_text_stream("stderr"))
+            self.bar = click.progressbar(length=n, label="runs", show_eta=True, show_pos=True,
+                                         item_show_func=lambda item: item, file=self.stream)
             self.bar.__enter__()
         else:
             self.bar.length = n
 
     def step(self, label: str):
+        self.done += 1
         if self.bar is not None:
             self.bar.update(1, current_item=label)
+        elif self.lines and not self.quiet:
+            click.echo(f"{self.done}/{self.length} {label}", file=self.stream)
 
     def close(self):
         if self.bar is not None:
@@ -42,14 +52,16 @@ class _Bar:
 @click.option("--quick", is_flag=True, help="A small sweep (8 points) for smoke tests.")
 @click.option("--seeds", default=1, show_default=True, type=int,
               help="Network and drive realisations (seeds seed, seed+1, ...).")
-@click.option("--jobs", type=int, help="Local worker processes.")
+@click.option("--jobs", type=int,
+              help="Local worker processes, each running one point at a time on one thread "
+                   "[default: one per core; 1 runs everything in this process].")
 @click.option("--scheduler", help="Dask scheduler address (runs the points on that cluster).")
 @click.option("--target-jitter-ms", default=0.1, show_default=True, type=float,
               help="Accuracy target: RMS spike-time jitter (ms).")
 @click.option("--target-mismatch-frac", default=0.01, show_default=True, type=float,
               help="Accuracy target: missed + extra spikes as a fraction of the reference's.")
 @click.option("--fresh", is_flag=True, help="Recompute points already stored.")
-@click.option("--quiet", is_flag=True, help="No progress bar.")
+@click.option("--quiet", is_flag=True, help="No progress display.")
 def profile(scenario, out_dir, sweep_file, quick, seeds, jobs, scheduler, target_jitter_ms,
             target_mismatch_frac, fresh, quiet):
     """Run the reference, the sensitivity ladder and the sweep of SCENARIO; write the profile and its report."""

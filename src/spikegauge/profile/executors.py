@@ -17,6 +17,7 @@ import dataclasses
 import os
 import re
 import threading
+from functools import partial
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from multiprocessing import get_context
 
@@ -25,11 +26,12 @@ import pandas as pd
 
 from ..errors import InputError
 from ..runs import Run
+from .cost import timed_run
 
 _NETWORKS: dict = {}
 # numba's default threading layer does not allow parallel kernels launched from two
-# threads at once (a Dask worker with several threads would do that); one run at a time
-# per process, each using all of the process's numba threads.
+# threads at once (a Dask worker with several threads would do that), and a point's CPU
+# time must be its own: one run at a time per process, on one numba thread.
 _RUN_LOCK = threading.Lock()
 
 
@@ -53,7 +55,8 @@ def execute_task(task: dict) -> Run:
     task : dict
         ``scenario_text``, ``scenario_source``, ``scenario_digest``, ``seed``,
         ``settings`` (resolved), ``probe`` (dict or None), ``record_steps``
-        (list of cells or None), ``threads`` (int or None).
+        (list of cells or None), ``threads`` (int or None), ``timed`` (repeat
+        the run until its CPU time is known, :func:`.cost.timed_run`).
     """
     from ..simulation import simulate
     from .reference import apply_probe
@@ -65,10 +68,11 @@ def execute_task(task: dict) -> Run:
             if task.get("probe"):
                 net = apply_probe(net, task["probe"])
             s = task["settings"]
-            run = simulate(net, strategy=s["strategy"], stepper=s.get("stepper"), dt_ms=s.get("dt_ms"),
-                           crossing=s.get("crossing"), delivery=s.get("delivery"), rtol=s.get("rtol"),
-                           atol=s.get("atol"), threads=task.get("threads"),
-                           record_steps=task.get("record_steps"))
+            run_once = partial(simulate, net, strategy=s["strategy"], stepper=s.get("stepper"),
+                               dt_ms=s.get("dt_ms"), crossing=s.get("crossing"), delivery=s.get("delivery"),
+                               rtol=s.get("rtol"), atol=s.get("atol"), threads=task.get("threads"),
+                               record_steps=task.get("record_steps"))
+            run = timed_run(run_once) if task.get("timed") else run_once()
         except Exception as exc:  # a failing point is a row, not a crash of the sweep
             run = failed_run(net, task, error_message(exc))
     run.meta.update(scenario_digest=task["scenario_digest"], scenario_text=task["scenario_text"],
@@ -107,9 +111,6 @@ class SerialExecutor:
 
     description = "serial"
 
-    def threads(self):
-        return None
-
     def run(self, tasks):
         for i, task in enumerate(tasks):
             yield i, execute_task(task)
@@ -118,18 +119,12 @@ class SerialExecutor:
         pass
 
 
-def _init_worker(threads: int):
-    import numba
-
-    numba.set_num_threads(max(1, min(threads, numba.config.NUMBA_NUM_THREADS)))
-
-
 class ProcessExecutor:
     """Runs tasks in ``jobs`` local worker processes (``--jobs N``).
 
-    Each worker uses ``cpu_count // jobs`` numba threads (at least one), so the
-    processes do not oversubscribe the cores. Workers are started with
-    ``spawn``: numba's thread pool is not safe to fork.
+    Each worker runs one point at a time on one numba thread (the task says
+    so), so ``jobs`` workers keep ``jobs`` cores busy. Workers are started
+    with ``spawn``: numba's thread pool is not safe to fork.
     """
 
     def __init__(self, jobs: int):
@@ -137,16 +132,11 @@ class ProcessExecutor:
             raise InputError(f"--jobs: must be at least 1, got {jobs}")
         self.jobs = int(jobs)
         self.description = f"{self.jobs} local processes"
-        self._threads = max(1, (os.cpu_count() or 1) // self.jobs)
         self._pool = None
-
-    def threads(self):
-        return self._threads
 
     def run(self, tasks):
         if self._pool is None:
-            self._pool = ProcessPoolExecutor(max_workers=self.jobs, mp_context=get_context("spawn"),
-                                             initializer=_init_worker, initargs=(self._threads,))
+            self._pool = ProcessPoolExecutor(max_workers=self.jobs, mp_context=get_context("spawn"))
         futures = {self._pool.submit(execute_task, t): i for i, t in enumerate(tasks)}
         try:
             for fut in as_completed(futures):
@@ -181,9 +171,6 @@ class DaskExecutor:
             raise InputError(f"--scheduler: cannot reach the Dask scheduler at {address}: {exc}") from None
         self.description = f"Dask scheduler {address}"
 
-    def threads(self):
-        return None
-
     def run(self, tasks):
         from distributed import as_completed as dask_completed
 
@@ -200,12 +187,24 @@ class DaskExecutor:
         self._client.close()
 
 
+def default_jobs() -> int:
+    """Worker processes when ``--jobs`` is not given: the cores this process may use."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # not every platform has affinity masks
+        return max(1, os.cpu_count() or 1)
+
+
 def make_executor(jobs: int | None = None, scheduler: str | None = None):
-    """The executor for ``--jobs`` / ``--scheduler`` (serial when neither is given)."""
+    """The executor for ``--jobs`` / ``--scheduler``: Dask, local processes (default:
+    one per core), or this process alone (``--jobs 1``)."""
     if jobs is not None and scheduler is not None:
         raise InputError("--jobs and --scheduler: give one or the other")
     if scheduler is not None:
         return DaskExecutor(scheduler)
-    if jobs is not None and int(jobs) > 1:
+    jobs = default_jobs() if jobs is None else jobs
+    if int(jobs) < 1:
+        raise InputError(f"--jobs: must be at least 1, got {jobs}")
+    if int(jobs) > 1:
         return ProcessExecutor(jobs)
     return SerialExecutor()

@@ -12,13 +12,15 @@ at most the target's.
 ``results.csv`` columns (one row per point, in sweep order, seed by seed):
 ``point, seed, label, strategy, stepper, dt_ms, crossing, delivery, rtol,
 atol, digest, status, message, t_reached_ms``; cost ``steps, rhs_evals,
-newton_iters, arrivals, rejected_steps, spikes, wall_s, compile_s, work
-(rhs_evals + newton_iters), steps_per_cell_ms, arrivals_per_ms``; target ``target_window_ms,
+newton_iters, arrivals, rejected_steps, spikes, cpu_s (CPU seconds of the run on one
+thread, compilation excluded, the least of its repeats), cpu_spread ((largest - least) /
+least over the repeats), cpu_repeats, wall_s (the integration loop's wall time),
+compile_s, work (rhs_evals + newton_iters), steps_per_cell_ms, arrivals_per_ms``; target ``target_window_ms,
 target_shift_rms_ms, target_shift_max_abs_ms, target_mismatch_fraction,
 target_missed_fraction, target_extra_fraction, meets_target``; then every
 key of the comparison summary (see :func:`spikegauge.analysis.compare`).
-Only ``wall_s``, ``compile_s`` (and ``timing`` in ``profile.json``) depend
-on the machine.
+Only the time columns (:data:`TIME_COLUMNS`, and ``timing`` in ``profile.json``)
+depend on the machine.
 """
 from __future__ import annotations
 
@@ -38,7 +40,7 @@ from .verdict import conclusions
 
 COMPARE_OPTIONS = dict(match_window_ms=2.0, tau_ms=5.0)
 """Options of every comparison of a profile (match window and van Rossum time constant, ms)."""
-WALL_COLUMNS = ("wall_s", "compile_s")
+TIME_COLUMNS = ("cpu_s", "cpu_spread", "cpu_repeats", "wall_s", "compile_s")
 """Columns that depend on the machine and the executor."""
 COST_KEYS = ("steps", "rhs_evals", "newton_iters", "arrivals", "rejected_steps", "spikes")
 SETTING_COLUMNS = ("strategy", "stepper", "dt_ms", "crossing", "delivery", "rtol", "atol")
@@ -89,7 +91,7 @@ def point_row(k, task, run, doc, window, spec) -> dict:
     failed = run.status == "failed"
     for c in COST_KEYS:
         row[c] = math.nan if failed else run.cost.get(c, math.nan)
-    for c in WALL_COLUMNS:
+    for c in TIME_COLUMNS:
         row[c] = math.nan if failed else run.cost.get(c, math.nan)
     # machine-independent work: a Newton iteration or Rosenbrock linear solve of a point
     # neuron (2-6 states) costs about one right-hand side (common practice)
@@ -112,8 +114,8 @@ def point_row(k, task, run, doc, window, spec) -> dict:
     return row
 
 
-def _strip_wall(cost: dict) -> dict:
-    return {k: v for k, v in cost.items() if k not in WALL_COLUMNS and k != "cell_steps_per_s"}
+def _strip_times(cost: dict) -> dict:
+    return {k: v for k, v in cost.items() if k not in TIME_COLUMNS and k != "cell_steps_per_s"}
 
 
 def evaluate(spec, store, networks, ref_tasks, ref_runs, probe_tasks, point_tasks, by_digest, out_dir) -> dict:
@@ -129,7 +131,7 @@ def evaluate(spec, store, networks, ref_tasks, ref_runs, probe_tasks, point_task
                                digests=[t["digest"] for t in ref_tasks[seed]], status=ref.status,
                                message=ref.message, spikes=int(len(ref.spikes)),
                                mean_rate_hz=ref.mean_rate_hz,
-                               cost=[_strip_wall(r.cost) for r in runs], uncertainty=unc))
+                               cost=[_strip_times(r.cost) for r in runs], uncertainty=unc))
         probes = [t["probe"] for t in probe_tasks[seed]]
         horizons = [probe_horizon(ref, by_digest[t["digest"]], t["probe"], **COMPARE_OPTIONS)
                     for t in probe_tasks[seed]]
@@ -153,7 +155,9 @@ def evaluate(spec, store, networks, ref_tasks, ref_runs, probe_tasks, point_task
                       seed=scen.seed, models=spec.model_names),
         target=dict(jitter_ms=spec.target_jitter_ms, mismatch_frac=spec.target_mismatch_frac),
         compare_options=COMPARE_OPTIONS,
-        sweep=dict(source=spec.sweep_source, n_settings=len(spec.sweep), n_points=len(rows)),
+        sweep=dict(source=spec.sweep_source, n_settings=len(spec.sweep), n_points=len(rows),
+                   n_runs=sum(len(ref_tasks[s]) + len(probe_tasks[s]) + len(point_tasks[s])
+                              for s in spec.seeds)),
         seeds=spec.seeds,
         references=references,
         ladder=ladders,

@@ -27,6 +27,7 @@ from .. import __version__
 from ..errors import InputError
 from ..network import build_network
 from ..scenario import parse_scenario
+from .cost import COST_METHOD, THREADS
 from .executors import make_executor
 from .reference import ladder_probes, reference_settings
 from .store import PointStore, point_digest
@@ -88,11 +89,11 @@ def prepare(scenario_path, *, sweep_file=None, quick=False, seeds=1, target_jitt
                        target_mismatch_frac=float(target_mismatch_frac))
 
 
-def _task(spec: ProfileSpec, seed: int, settings: dict, probe=None, record_steps=None, threads=None):
+def _task(spec: ProfileSpec, seed: int, settings: dict, probe=None, record_steps=None, timed=False):
     t = dict(scenario_text=spec.scenario_text, scenario_source=str(spec.scenario.path or ""),
              scenario_digest=spec.scenario_digest, scenario_name=spec.scenario.name, seed=int(seed),
              settings=dict(settings), probe=probe, record_steps=record_steps, version=__version__,
-             threads=threads)
+             threads=THREADS, timing=COST_METHOD if timed else None, timed=timed)
     if not t["scenario_source"]:
         t["scenario_source"] = None
     t["digest"] = point_digest(t)
@@ -102,7 +103,7 @@ def _task(spec: ProfileSpec, seed: int, settings: dict, probe=None, record_steps
 def _label(task) -> str:
     if task["probe"]:
         p = task["probe"]
-        return f"seed {task['seed']} probe {p['kind']} cell {p['cell']}"
+        return f"seed {task['seed']} reference perturbed ({p['kind']}, cell {p['cell']})"
     return f"seed {task['seed']} {setting_label(task['settings'])}"
 
 
@@ -188,7 +189,6 @@ def run_profile(scenario_path, out_dir, *, sweep_file=None, quick=False, seeds=1
     store = PointStore(out)
     own = executor is None
     executor = make_executor(jobs, scheduler) if own else executor
-    threads = executor.threads()
     networks = {s: build_network(dataclasses.replace(spec.scenario, seed=s)) for s in spec.seeds}
     ref_settings = reference_settings(spec.model_names)
     n_probes_guess = 15
@@ -198,15 +198,15 @@ def run_profile(scenario_path, out_dir, *, sweep_file=None, quick=False, seeds=1
     prog_total(total)
     batch = _Batch(store, executor, fresh, prog_step)
     try:
-        ref_tasks = {s: [_task(spec, s, rs, threads=threads) for rs in ref_settings] for s in spec.seeds}
+        ref_tasks = {s: [_task(spec, s, rs) for rs in ref_settings] for s in spec.seeds}
         flat = [t for s in spec.seeds for t in ref_tasks[s]]
         runs = batch.run(flat)
         ref_runs = {s: runs[i * len(ref_settings):(i + 1) * len(ref_settings)] for i, s in enumerate(spec.seeds)}
         probes = {s: ladder_probes(networks[s], ref_runs[s][-1], spec.target_jitter_ms)
                   if ref_runs[s][-1].status == "ok" else [] for s in spec.seeds}
-        probe_tasks = {s: [_task(spec, s, ref_settings[-1], probe=p, threads=threads) for p in probes[s]]
+        probe_tasks = {s: [_task(spec, s, ref_settings[-1], probe=p) for p in probes[s]]
                        for s in spec.seeds}
-        point_tasks = {s: [_task(spec, s, st, threads=threads,
+        point_tasks = {s: [_task(spec, s, st, timed=True,
                                  record_steps=step_trace_cells(networks[s].n_cells)
                                  if st["strategy"] != "fixed" else None)
                            for st in spec.sweep] for s in spec.seeds}

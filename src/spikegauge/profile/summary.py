@@ -15,13 +15,17 @@ def profile_text(doc: dict) -> str:
     if v:
         lines.append(f"Verdict: {v['text']}.")
         lines.append(f"  Why: {v['reason']}.")
-        walls = [f"{s} {c['wall_s']:.3g} s" for s, c in v["cheapest"].items() if c.get("wall_s") is not None]
-        if walls:
-            lines.append(f"  Wall time on this machine (cheapest setting meeting the target): {', '.join(walls)}.")
+        secs = [f"{s} {c['label']} {c['cpu_s']:.3g} s" for s, c in v["cheapest"].items()
+                if c.get("cpu_s") is not None]
+        if secs:
+            lines.append(f"  CPU seconds on one thread, cheapest setting of each strategy meeting the target: "
+                         f"{'; '.join(secs)}.")
     sc = doc["scenario"]
+    sw = doc["sweep"]
+    n_seeds = len(doc["seeds"])
     lines.append(f"Scenario {sc['name']}: {sc['n_cells']} cells, {sc['duration_ms']:g} ms; "
-                 f"{doc['sweep']['n_points']} points ({doc['sweep']['source']} sweep, "
-                 f"{len(doc['seeds'])} seed(s)).")
+                 f"{sw['n_settings']} settings ({sw['n_runs']} runs with the reference and perturbation "
+                 f"runs; {sw['source']} sweep, {n_seeds} seed{'s' if n_seeds != 1 else ''}).")
     for ref, lad in zip(doc["references"], doc["ladder"]):
         u = ref["uncertainty"]
         lines.append(f"Reference (seed {ref['seed']}, {u['kind']}): {u['message']}.")
@@ -30,5 +34,5 @@ def profile_text(doc: dict) -> str:
         lines.append(f"  per-spike targets judged over the first {lad['judged_window_ms']:.4g} ms")
     t = doc.get("timing")
     if t:
-        lines.append(f"{t['points_computed']} points computed in {t['wall_s']:.1f} s ({t['executor']}).")
+        lines.append(f"{t['points_computed']} runs computed in {t['wall_s']:.1f} s ({t['executor']}).")
     return "\n".join(lines)

@@ -11,7 +11,7 @@ import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure
 
-from ..profile.front import COST_MEASURES, ERROR_MEASURES
+from ..profile.front import COST_MEASURES, ERROR_MEASURES, REFERENCE_FLOOR_FACTOR, fit_excluded
 from .raster_plots import OKABE_ITO, _new_figure
 
 STYLE = {"fixed": (OKABE_ITO["orange"], "s"), "global-adaptive": (OKABE_ITO["blue"], "^"),
@@ -22,12 +22,14 @@ COMBO_COLOURS = [OKABE_ITO[k] for k in ("orange", "sky", "green", "vermillion", 
 MARKERS = "sovD^<>P*X"
 
 
-def plot_front(table: pd.DataFrame, doc: dict, error: str = "jitter", cost: str = "work") -> Figure:
-    """Cost against error of every ok point; each strategy's front as a line; target region shaded."""
+def plot_front(table: pd.DataFrame, doc: dict, error: str = "jitter", cost: str = "cpu") -> Figure:
+    """Work–precision diagram: cost against error of every ok point, each strategy's front as a
+    line, the target region shaded, the recommended point ringed, the reference's uncertainty
+    drawn as a line."""
     fig, ax = _new_figure(None, (7.0, 4.8))
     ecol, ccol = ERROR_MEASURES[error], COST_MEASURES[cost]
     seed0 = doc["seeds"][0]
-    rows = table[(table["seed"] == seed0) & (table["status"] == "ok")]
+    rows = table[(table["seed"] == seed0) & (table["status"] == "ok") & table[ccol].notna()]
     fronts = doc["fronts"][cost][error]
     floor = _floor(rows[ecol])
     for strategy, (colour, marker) in STYLE.items():
@@ -36,21 +38,33 @@ def plot_front(table: pd.DataFrame, doc: dict, error: str = "jitter", cost: str 
             continue
         y = np.maximum(r[ecol].to_numpy(float), floor)
         ax.scatter(r[ccol], y, color=colour, marker=marker, alpha=0.55, label=strategy)
-        f = rows.set_index("point").loc[fronts.get(strategy, [])]
+        f = rows.set_index("point").loc[[p for p in fronts.get(strategy, []) if p in set(rows["point"])]]
         ax.plot(f[ccol], np.maximum(f[ecol].to_numpy(float), floor), color=colour, marker=marker,
                 linewidth=1.8, drawstyle="steps-post")
     if error in ("jitter", "mismatch"):
         limit = doc["target"]["jitter_ms" if error == "jitter" else "mismatch_frac"]
-        ax.axhspan(floor, limit, color="0.85", zorder=0, label="meets the target")
+        ax.axhspan(floor, limit, color="0.88", zorder=0,
+                   label="within the target (this error only; see the verdict for both)")
+    if error == "jitter":
+        unc = doc["references"][0]["uncertainty"].get("shift_rms_ms")
+        if unc is not None and np.isfinite(unc) and unc > 0:
+            ax.axhline(max(unc, floor), color="0.35", linestyle=":", linewidth=1.0,
+                       label="reference's own uncertainty")
+    rec = (doc.get("verdict") or {}).get("recommended")
+    if rec is not None and rec["point"] in set(rows["point"]):
+        r = rows.set_index("point").loc[rec["point"]]
+        ax.scatter([r[ccol]], [max(float(r[ecol]), floor)], s=220, facecolors="none",
+                   edgecolors=OKABE_ITO["vermillion"], linewidths=2.0, label="recommended", zorder=5)
     ax.set_xscale("log")
     ax.set_yscale("log")
-    ax.set_xlabel({"work": "work (rhs evaluations + Newton iterations)", "wall": "wall time (s)"}[cost])
-    ax.set_ylabel({"jitter": "RMS jitter in the judged window (ms)",
-                   "mismatch": "missed + extra fraction in the judged window",
+    ax.set_xlabel({"work": "work (rhs evaluations + Newton iterations)",
+                   "cpu": "CPU seconds on one thread"}[cost])
+    ax.set_ylabel({"jitter": "RMS jitter in the evaluation window (ms)",
+                   "mismatch": "(missed + extra) per reference spike",
                    "van-rossum": "van Rossum distance (mean over cells)",
                    "rate": "RMS rate error (Hz)"}[error])
-    ax.legend(fontsize="small")
-    ax.set_title("Cost-accuracy front (points drawn at the floor had zero error)", fontsize="medium")
+    ax.legend(fontsize="small", loc="best", framealpha=0.9)
+    ax.set_title("Work–precision diagram (points at the bottom edge had zero error)", fontsize="medium")
     return fig
 
 
@@ -61,38 +75,62 @@ def _floor(values) -> float:
 
 
 def plot_convergence(table: pd.DataFrame, doc: dict) -> Figure:
-    """Error against dt (fixed) and against rtol (adaptive), fitted slopes in the legend."""
-    fig = Figure(figsize=(11.0, 4.5), layout="constrained")
+    """Error against dt (fixed) and against rtol (adaptive), fitted slopes in the legends.
+
+    Points left out of the fits (below the reference's own uncertainty) are
+    drawn hollow; an adaptive family whose steps the input events set says so.
+    """
+    from matplotlib.ticker import LogLocator
+
+    fig = Figure(figsize=(11.0, 5.6), layout="constrained")
     from matplotlib.backends.backend_agg import FigureCanvasAgg
 
     FigureCanvasAgg(fig)
     ax1, ax2 = fig.subplots(1, 2)
     rows = table[(table["seed"] == doc["seeds"][0]) & (table["status"] == "ok")]
+    unc = doc["references"][0]["uncertainty"].get("shift_rms_ms")
+    unc = np.nan if unc is None else float(unc)
+    below = fit_excluded(rows, unc)
     fits = {(f["strategy"], f["stepper"], f["crossing"], f["delivery"]): f for f in doc["fits"]}
     col = "target_shift_rms_ms"
+
+    def draw(ax, r, x, i, label):
+        colour, marker = COMBO_COLOURS[i % len(COMBO_COLOURS)], MARKERS[i % len(MARKERS)]
+        r = r.sort_values(x)
+        ax.plot(r[x], r[col], color=colour, linewidth=1.0, label=label)
+        solid, hollow = r[~below.loc[r.index]], r[below.loc[r.index]]
+        ax.scatter(solid[x], solid[col], color=colour, marker=marker, zorder=3)
+        ax.scatter(hollow[x], hollow[col], facecolors="none", edgecolors=colour, marker=marker, zorder=3)
+
+    def describe(f):
+        if f is None:
+            return ": too few points to fit"
+        if f["note"]:
+            return f": {f['note']}"
+        return f": slope {f['slope']:.2f} (expected {f['expected']:.3g})"
+
     fixed = rows[rows["strategy"] == "fixed"]
     for i, ((st, cr, de), r) in enumerate(fixed.groupby(["stepper", "crossing", "delivery"], sort=True)):
-        f = fits.get(("fixed", st, cr, de))
-        label = f"{st} {cr}/{de}" + (f": slope {f['slope']:.2f} (expected {f['expected']:g})" if f else "")
-        ax1.plot(r["dt_ms"], r[col], color=COMBO_COLOURS[i % 8], marker=MARKERS[i % 10], label=label)
-    ax1.set_xscale("log")
-    ax1.set_yscale("log")
-    ax1.set_xlabel("time step dt (ms)")
-    ax1.set_ylabel("RMS jitter (ms)")
-    ax1.set_title("Fixed step", fontsize="medium")
-    if ax1.get_legend_handles_labels()[0]:
-        ax1.legend(fontsize="x-small")
+        draw(ax1, r, "dt_ms", i, f"{st} {cr}/{de}" + describe(fits.get(("fixed", st, cr, de))))
     adaptive = rows[rows["strategy"] != "fixed"]
     for i, ((sg, st), r) in enumerate(adaptive.groupby(["strategy", "stepper"], sort=True)):
-        f = fits.get((sg, st, "dense", "exact"))
-        label = f"{sg} {st}" + (f": slope {f['slope']:.2f} (expected {f['expected']:g})" if f else "")
-        ax2.plot(r["rtol"], r[col], color=COMBO_COLOURS[i % 8], marker=MARKERS[i % 10], label=label)
-    ax2.set_xscale("log")
-    ax2.set_yscale("log")
-    ax2.set_xlabel("relative tolerance rtol")
-    ax2.set_title("Adaptive", fontsize="medium")
-    if ax2.get_legend_handles_labels()[0]:
-        ax2.legend(fontsize="x-small")
+        draw(ax2, r, "rtol", i, f"{sg} {st}" + describe(fits.get((sg, st, "dense", "exact"))))
+    for ax, xlabel, title in ((ax1, "time step dt (ms)", "Fixed step"),
+                              (ax2, "relative tolerance rtol", "Adaptive")):
+        ax.set_xscale("log")
+        ax.set_yscale("log")
+        ax.xaxis.set_major_locator(LogLocator(base=10, numticks=6))
+        ax.xaxis.set_minor_locator(LogLocator(base=10, subs=(2.0, 5.0), numticks=12))
+        ax.set_xlabel(xlabel)
+        ax.set_ylabel("RMS jitter in the evaluation window (ms)")
+        ax.set_title(title, fontsize="medium")
+        if np.isfinite(unc) and unc > 0:
+            ax.axhline(REFERENCE_FLOOR_FACTOR * unc, color="0.4", linestyle=":", linewidth=1.0)
+        if ax.get_legend_handles_labels()[0]:
+            ax.legend(fontsize="x-small", loc="upper center", bbox_to_anchor=(0.5, -0.16), ncol=1,
+                      frameon=False)
+    fig.suptitle("Convergence (hollow: below 3x the reference's uncertainty, the dotted line; "
+                 "left out of the fits)", fontsize="small")
     return fig
 
 
