@@ -172,7 +172,7 @@ target = "cells"
 connect = "sources-per-target"
 sources_per_target = 2
 receptor = "excitatory"
-weight_ms_per_cm2 = 0.02
+weight_msiemens_per_cm2 = 0.02
 delay_ms = 5.0
 """
 

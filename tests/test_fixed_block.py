@@ -167,6 +167,6 @@ target = "e"
 connect = "sources-per-target"
 sources_per_target = 10
 receptor = "inhibitory"
-weight_ns = 2.0
+weight_nsiemens = 2.0
 delay_ms = {{ distribution = "uniform", low = 1.0, high = 2.0 }}
 """

@@ -310,7 +310,7 @@ name = "cells"
 size = 4
 model = "hh-squid"
 [group.parameters]
-g_k_ms_per_cm2 = {g_k!r}
+g_k_msiemens_per_cm2 = {g_k!r}
 [group.initial]
 v_mv = -65.0
 """)

@@ -90,7 +90,7 @@ source = "a"
 target = "b"
 connect = "all-to-all"
 receptor = "excitatory"
-weight_ms_per_cm2 = 0.15
+weight_msiemens_per_cm2 = 0.15
 delay_ms = 1.5
 
 [[pathway]]
@@ -98,7 +98,7 @@ source = "a"
 target = "c"
 connect = "all-to-all"
 receptor = "excitatory"
-weight_ms_per_cm2 = 0.1
+weight_msiemens_per_cm2 = 0.1
 delay_ms = 2.0
 
 [[pathway]]
@@ -106,7 +106,7 @@ source = "b"
 target = "c"
 connect = "all-to-all"
 receptor = "excitatory"
-weight_ms_per_cm2 = 0.1
+weight_msiemens_per_cm2 = 0.1
 delay_ms = 1.0
 """
 

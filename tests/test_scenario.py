@@ -54,7 +54,7 @@ target = "hh"
 connect = "random"
 p_connect = 0.3
 receptor = "inhibitory"
-weight_ms_per_cm2 = 0.1
+weight_msiemens_per_cm2 = 0.1
 delay_ms = 1.5
 
 [[drive]]
@@ -152,10 +152,10 @@ MALFORMED = [
     pytest.param(("sources_per_target = 4", "sources_per_target = 20"),
                  ["pathway[0].sources_per_target", "only 19 are available", "minus the target cell itself"],
                  id="sources-per-target-too-large"),
-    pytest.param(("weight_ms_per_cm2 = 0.1", "weight_ns = 0.1"),
-                 ["pathway[1].weight_ns", "weight_ms_per_cm2", "hh-squid"], id="weight-wrong-units"),
-    pytest.param(("tau_m_ms = 15.0", "g_na_ms_per_cm2 = 100.0"),
-                 ["group[0].parameters.g_na_ms_per_cm2", "belongs to hh-squid", "lif-current takes:", "tau_m_ms"],
+    pytest.param(("weight_msiemens_per_cm2 = 0.1", "weight_nsiemens = 0.1"),
+                 ["pathway[1].weight_nsiemens", "weight_msiemens_per_cm2", "hh-squid"], id="weight-wrong-units"),
+    pytest.param(("tau_m_ms = 15.0", "g_na_msiemens_per_cm2 = 100.0"),
+                 ["group[0].parameters.g_na_msiemens_per_cm2", "belongs to hh-squid", "lif-current takes:", "tau_m_ms"],
                  id="parameter-wrong-model"),
     pytest.param(("tau_m_ms = 15.0", "tau_m_ms = -3"),
                  ["group[0].parameters.tau_m_ms: must be positive, got -3"], id="negative-parameter"),

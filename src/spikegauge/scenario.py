@@ -655,7 +655,7 @@ def _param_sign(key: str) -> tuple[bool, bool]:
     """
     if key.endswith(("_pf", "_uf_per_cm2")) or (key.startswith("tau") and key.endswith("_ms")):
         return True, False
-    if key.endswith("_ms") or (key.startswith("g_") and key.endswith(("_ns", "_ms_per_cm2"))):
+    if key.endswith("_ms") or (key.startswith("g_") and key.endswith(("_nsiemens", "_msiemens_per_cm2"))):
         return False, True
     return False, False
 

@@ -155,13 +155,13 @@ def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, d
     settings = resolve_settings(scen, strategy, stepper, dt_ms, crossing, delivery, rtol, atol)
     t_stop = float(network.t_stop_ms if t_stop_ms is None else t_stop_ms)
     if not (t_stop > 0 and math.isfinite(t_stop)):
-        raise InputError(f"t_stop_ms: must be a positive number, got {t_stop!r}")
+        raise InputError(f"t_stop_ms (--t-stop-ms): must be a positive number, got {t_stop!r}")
     if settings["strategy"] == "fixed" and settings["dt_ms"] > t_stop:
         raise InputError(f"dt_ms: a time step of {settings['dt_ms']:g} ms is longer than the run "
                          f"({t_stop:g} ms)")
     if t_stop > network.t_stop_ms:
         # The drive (Poisson trains, step ends, input spikes) is defined up to the duration only.
-        raise InputError(f"t_stop_ms: must not exceed the scenario's duration_ms = "
+        raise InputError(f"t_stop_ms (--t-stop-ms): must not exceed the scenario's duration_ms = "
                          f"{network.t_stop_ms:g}, got {t_stop:g}")
     if threads is not None and not 1 <= int(threads) <= numba.config.NUMBA_NUM_THREADS:
         raise InputError(f"threads: must be between 1 and {numba.config.NUMBA_NUM_THREADS}, got {threads}")
