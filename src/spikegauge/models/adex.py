@@ -111,6 +111,7 @@ SPEC = ModelSpec(
     lower=np.array([V_LOWER_MV, -W_BOUND_PA, -NEG_SCALES_ALLOWED * _SCALE[2], -NEG_SCALES_ALLOWED * _SCALE[3]]),
     upper=np.array([V_UPPER_MV, W_BOUND_PA, SYN_UPPER_SCALES * _SCALE[2], SYN_UPPER_SCALES * _SCALE[3]]),
     doc=__doc__,
+    source="Brette & Gerstner 2005, J Neurophysiol 94:3637-3642 (regular-spiking cell, values from memory)",
     extra={
         "rest_guess_slot": P_E_L,
         "positive_params": ("c_m_pf", "g_l_nsiemens", "delta_t_mv", "tau_w_ms", "tau_syn_exc_ms", "tau_syn_inh_ms"),

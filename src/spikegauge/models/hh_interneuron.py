@@ -90,6 +90,7 @@ SPEC = ModelSpec(
     upper=np.array([V_BOUND_MV, GATE_UPPER, GATE_UPPER,
                     SYN_UPPER_SCALES * _SCALE[3], SYN_UPPER_SCALES * _SCALE[4]]),
     doc=__doc__,
+    source="Wang & Buzsaki 1996, J Neurosci 16:6402-6413 (values from memory)",
     extra={
         "rest_guess_slot": P_E_L,
         "fixed_params": ("v_reset_mv", "t_ref_ms"),

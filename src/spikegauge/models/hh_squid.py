@@ -110,6 +110,7 @@ SPEC = ModelSpec(
     upper=np.array([V_BOUND_MV, GATE_UPPER, GATE_UPPER, GATE_UPPER,
                     SYN_UPPER_SCALES * _SCALE[4], SYN_UPPER_SCALES * _SCALE[5]]),
     doc=__doc__,
+    source="Hodgkin & Huxley 1952, J Physiol 117:500-544 (squid giant axon, 6.3 deg C, modern sign convention)",
     extra={
         "rest_guess_slot": P_E_L,
         "fixed_params": ("v_reset_mv", "t_ref_ms"),
