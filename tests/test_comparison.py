@@ -253,6 +253,46 @@ def test_compare_many_ranks_tests_on_the_front():
     assert compare_many(ref, tests).front is None
 
 
+def test_comparison_to_frame_is_the_per_cell_table_with_fixed_dtypes():
+    # The pen-and-paper case above: cell 0 shifted by +0.5 ms, cell 1's spike missed,
+    # cell 2 with one extra spike, cell 3 silent in both.
+    groups = dict(n_cells=4, t_stop_ms=100.0, group_names=("E", "I"), group_first=(0, 2))
+    ref = Raster.from_arrays([0, 1, 2, 3], [10.0, 20.0, 30.0, 60.0], **groups)
+    test = Raster.from_arrays([0, 2, 2, 3], [10.5, 30.0, 45.0, 60.0], **groups)
+    f = compare(ref, test).to_frame()
+    assert list(f["cell"]) == [0, 1, 2, 3] and list(f["group"]) == ["E", "E", "I", "I"]
+    assert list(f["group"].cat.categories) == ["E", "I"]
+    assert list(f["matched"]) == [1, 0, 1, 1] and list(f["missed"]) == [0, 1, 0, 0]
+    assert list(f["extra"]) == [0, 0, 1, 0]
+    assert f.loc[0, "shift_mean_ms"] == pytest.approx(0.5) and np.isnan(f.loc[1, "shift_mean_ms"])
+    ints = ["cell", "n_ref", "n_test", "matched", "missed", "extra"]
+    assert all(f[c].dtype == np.int64 for c in ints)
+    assert all(f[c].dtype == np.float64 for c in f.columns if c not in ints + ["group"])
+    # Tidy: summing the per-cell rows gives the summary's counts.
+    assert f[["matched", "missed", "extra"]].sum().tolist() == [3, 1, 1]
+
+
+def test_comparison_set_to_frame_one_row_per_test():
+    rng = np.random.default_rng(8)
+    ref = poisson_raster(30, 20.0, 500.0, rng)
+    tests = {"fine": perturbed(ref, rng, jitter_ms=0.01, drop=0.0, add=0.0),
+             "silent": frame([], []),
+             "coarse": perturbed(ref, rng, jitter_ms=0.5, drop=0.2, add=0.2)}
+    result = compare_many(ref, tests, costs={"fine": 10.0, "coarse": 1.0})
+    f = result.to_frame()
+    assert list(f["test"]) == ["fine", "silent", "coarse"] and f["test"].dtype == "string"
+    for name, row in zip(f["test"], f.itertuples(index=False)):
+        s = result.comparisons[name].summary
+        assert (row.n_ref, row.n_test, row.matched, row.missed, row.extra) == (
+            s["n_ref"], s["n_test"], s["matched"], s["missed"], s["extra"])
+    silent = f.set_index("test").loc["silent"]
+    assert silent["n_test"] == 0 and silent["missed_fraction"] == 1.0 and np.isnan(silent["shift_rms_ms"])
+    assert np.isnan(silent["cost"]) and not silent["on_front"]
+    assert f["matched"].dtype == np.int64 and f["diverged"].dtype == bool and f["on_front"].dtype == bool
+    assert f["shift_rms_ms"].dtype == np.float64 and f["cost"].dtype == np.float64
+    assert set(f.columns) == {"test"} | set(result.table.columns)
+
+
 def test_to_json_writes_nan_as_null(tmp_path):
     c = compare(frame([0], [1.0]), frame([1], [5.0]), n_cells=2, t_stop_ms=10.0)
     doc = json.loads(c.to_json(tmp_path / "c.json"))
