@@ -82,7 +82,7 @@ def resolve_settings(scenario, strategy=None, stepper=None, dt_ms=None, crossing
         for key in ("dt_ms", "delivery"):
             if given[key] is not None:
                 raise InputError(f"{key}: applies to the fixed strategy, not to {strategy!r} "
-                                 "(every arrival ends an adaptive step exactly)")
+                                 "(every synaptic event ends an adaptive step exactly)")
         if out["crossing"] != "dense":
             raise InputError(f"crossing: adaptive strategies locate crossings on dense output; "
                              f"'dense' is the only choice, got {out['crossing']!r}")

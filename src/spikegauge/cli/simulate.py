@@ -16,7 +16,8 @@ from .main import cli, progress_bar
 @click.option("--dt-ms", type=float, help="Time step of the fixed strategy (ms).")
 @click.option("--crossing", type=click.Choice(["step", "linear", "hermite", "dense"]),
               help="Threshold-crossing location.")
-@click.option("--delivery", type=click.Choice(["grid", "exact"]), help="Arrival delivery of the fixed strategy.")
+@click.option("--delivery", type=click.Choice(["grid", "exact"]),
+              help="When the fixed strategy applies a synaptic event: at the next step (grid) or exactly.")
 @click.option("--rtol", type=float, help="Relative tolerance (adaptive strategies).")
 @click.option("--atol", type=float, help="Absolute tolerance in units of each state's scale (adaptive).")
 @click.option("--auto-scale", is_flag=True, help="Measure state scales with a short pilot run (adaptive).")
@@ -64,6 +65,6 @@ def simulate(scenario, strategy, stepper, dt_ms, crossing, delivery, rtol, atol,
         click.echo(run.message)
     click.echo(f"setting: {desc}")
     c = run.cost
-    click.echo(f"cost: {c['steps']} steps, {c['rhs_evals']} rhs evaluations, {c['arrivals']} arrivals, "
-               f"loop {c['wall_s']:.3f} s")
+    click.echo(f"cost: {c['steps']} cell-steps, {c['rhs_evals']} rhs evaluations, "
+               f"{c['arrivals']} synaptic events, loop {c['wall_s']:.3f} s")
     click.echo(f"written: {out}/spikes.npz, run.json")
