@@ -78,9 +78,10 @@ def test_conductance_keys_spell_siemens():
             assert not key.endswith(("_ns", "_ms_per_cm2")), (name, key)
             if key.startswith(("g_", "a_")) or (key.startswith("weight_") and name != "lif-current"):
                 assert key.endswith(("_nsiemens", "_msiemens_per_cm2")), (name, key)
-        # Every key but a gating variable names a unit the catalog knows.
+        # Every key but the dimensionless ones (gating variables, the Wang-Buzsaki
+        # rate factor phi) names a unit the catalog knows.
         for key in [*info.states["key"], *info.parameters["key"]]:
-            assert unit_of(key) != "1" or key in ("m", "h", "n"), (name, key)
+            assert unit_of(key) != "1" or key in ("m", "h", "n", "phi"), (name, key)
     assert unit_of("g_na_msiemens_per_cm2") == "mS/cm²" and unit_of("tau_m_ms") == "ms"
     assert unit_of("weight_nsiemens") == "nS" and unit_of("m") == "1"
 
