@@ -169,10 +169,10 @@ v_mv = { distribution = "uniform", low = -70.0, high = -60.0 }
 [[pathway]]
 source = "cells"
 target = "cells"
-rule = "fixed-indegree"
-indegree = 2
+connect = "sources-per-target"
+sources_per_target = 2
 receptor = "excitatory"
-weight_ms_per_cm2 = 0.02
+weight_msiemens_per_cm2 = 0.02
 delay_ms = 5.0
 """
 

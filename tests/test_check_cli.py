@@ -58,8 +58,8 @@ model = "lif-current"
 [[pathway]]
 source = "a"
 target = "a"
-rule = "fixed-indegree"
-indegree = 3
+connect = "sources-per-target"
+sources_per_target = 3
 receptor = "excitatory"
 weight_pa = 5.0
 delay_ms = 1.0
@@ -67,7 +67,8 @@ delay_ms = 1.0
 
 
 @pytest.mark.parametrize("old, new, expected", [
-    ("indegree = 3", "indegre = 3", ["pathway[0].indegre", "did you mean 'indegree'"]),
+    ("sources_per_target = 3", "sources_per_target_ = 3",
+     ["pathway[0].sources_per_target_", "did you mean 'sources_per_target'"]),
     ("size = 10", "size = -10", ["group[0].size", "must be positive"]),
     ("delay_ms = 1.0", "delay_ms = 0", ["pathway[0].delay_ms", "must be positive"]),
     ("seed = 1\n", "seed = 1\n[[group\n", ["line 5", "invalid TOML"]),

@@ -49,8 +49,8 @@ model = "lif-current"
 [[pathway]]
 source = "cells"
 target = "cells"
-rule = "fixed-indegree"
-indegree = 2000
+connect = "sources-per-target"
+sources_per_target = 2000
 receptor = "excitatory"
 weight_pa = 1.0
 delay_ms = 1.0

@@ -53,6 +53,12 @@ def test_two_hand_written_csv_files(tmp_path, csv_pair):
     figures = sorted(p.name for p in (out / "figures").iterdir())
     assert figures == ["error_over_time.png", "jitter_histogram.png", "jitter_vs_rate.png",
                        "raster_difference.png"]
+    # The legend under the table explains the column heads; the figure's subset is printed.
+    assert header[4] == "(missed+extra)/ref" and row[4] == "66.67%"
+    assert "(missed+extra)/ref: missed plus extra spikes per reference spike" in lines
+    assert any(line.startswith("vR: van Rossum distance (tau 5 ms)") for line in lines)
+    assert any(line.startswith("Γ: coincidence factor (window 2 ms)") for line in lines)
+    assert "figures/raster_difference.png shows all 3 firing cells of 4, 0-100 ms (the whole interval)" in lines
 
 
 def test_front_figure_with_costs(tmp_path, csv_pair):

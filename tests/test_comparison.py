@@ -166,9 +166,41 @@ def test_horizon_from_jitter_limit_and_window_counts():
     assert 450.0 <= c.summary["horizon_ms"] <= 500.0
     ot = c.over_time
     assert (ot["matched"] + ot["missed"] == ot["n_ref"]).all()
-    assert (ot["matched"] + ot["extra"] == ot["n_test"]).all()
+    assert (ot["matched_test"] + ot["extra"] == ot["n_test"]).all()
+    assert ot["matched"].sum() == pytest.approx(ot["matched_test"].sum(), rel=0.05)
     # each spike lies in two half-overlapping windows (one at the ends)
     assert ot["n_ref"].sum() == pytest.approx(2 * ref.n_spikes, rel=0.05)
+
+
+def test_agreement_never_exceeds_one_when_pairs_straddle_a_window_edge():
+    # Pen and paper, windows of 50 ms with stride 25 ms: ten cells fire at 25.1 and
+    # 30 ms in the reference, at 24.9 and 30 ms in the test (every spike matched).
+    # The window 25-75 ms holds 20 reference spikes but only the 10 test spikes at
+    # 30 ms: all 30 spikes in it are matched, agreement 30/30 = 1 exactly. Counting
+    # both spikes of a pair at the reference spike gave 2*20/30 = 1.33.
+    cells = np.repeat(np.arange(10), 2)
+    ref = Raster.from_arrays(cells, np.tile([25.1, 30.0], 10), n_cells=10, t_start_ms=0.0, t_stop_ms=100.0)
+    test = Raster.from_arrays(cells, np.tile([24.9, 30.0], 10), n_cells=10, t_start_ms=0.0, t_stop_ms=100.0)
+    ot = compare(ref, test, horizon_window_ms=50.0).over_time.set_index("start_ms")
+    w = ot.loc[25.0]
+    assert (w["n_ref"], w["n_test"], w["matched"], w["matched_test"], w["extra"]) == (20, 10, 20, 10, 0)
+    assert w["agreement"] == 1.0
+    assert ot["agreement"].max() == 1.0 and ot["corrected"].max() <= 1.0
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.integers(0, 10_000), st.floats(0.0, 1.9))
+def test_agreement_is_at_most_one_for_jittered_rasters(seed, jitter_ms):
+    # Property of the definition (each matched count is bounded by its spike count):
+    # f <= 1, hence corrected = (f - f0) / (1 - f0) <= 1, and no window has a
+    # negative number of extra spikes.
+    rng = np.random.default_rng(seed)
+    ref = poisson_raster(20, 40.0, 300.0, rng)
+    ot = compare(ref, perturbed(ref, rng, jitter_ms=jitter_ms, drop=0.1, add=0.1),
+                 horizon_window_ms=10.0).over_time
+    assert np.nanmax(ot["agreement"], initial=0.0) <= 1.0
+    assert np.nanmax(ot["corrected"], initial=0.0) <= 1.0 + 1e-12
+    assert (ot["extra"] >= 0).all() and (ot["missed"] >= 0).all()
 
 
 # --- population statistics -----------------------------------------------------------------------
@@ -253,6 +285,46 @@ def test_compare_many_ranks_tests_on_the_front():
     assert compare_many(ref, tests).front is None
 
 
+def test_comparison_to_frame_is_the_per_cell_table_with_fixed_dtypes():
+    # The pen-and-paper case above: cell 0 shifted by +0.5 ms, cell 1's spike missed,
+    # cell 2 with one extra spike, cell 3 silent in both.
+    groups = dict(n_cells=4, t_stop_ms=100.0, group_names=("E", "I"), group_first=(0, 2))
+    ref = Raster.from_arrays([0, 1, 2, 3], [10.0, 20.0, 30.0, 60.0], **groups)
+    test = Raster.from_arrays([0, 2, 2, 3], [10.5, 30.0, 45.0, 60.0], **groups)
+    f = compare(ref, test).to_frame()
+    assert list(f["cell"]) == [0, 1, 2, 3] and list(f["group"]) == ["E", "E", "I", "I"]
+    assert list(f["group"].cat.categories) == ["E", "I"]
+    assert list(f["matched"]) == [1, 0, 1, 1] and list(f["missed"]) == [0, 1, 0, 0]
+    assert list(f["extra"]) == [0, 0, 1, 0]
+    assert f.loc[0, "shift_mean_ms"] == pytest.approx(0.5) and np.isnan(f.loc[1, "shift_mean_ms"])
+    ints = ["cell", "n_ref", "n_test", "matched", "missed", "extra"]
+    assert all(f[c].dtype == np.int64 for c in ints)
+    assert all(f[c].dtype == np.float64 for c in f.columns if c not in ints + ["group"])
+    # Tidy: summing the per-cell rows gives the summary's counts.
+    assert f[["matched", "missed", "extra"]].sum().tolist() == [3, 1, 1]
+
+
+def test_comparison_set_to_frame_one_row_per_test():
+    rng = np.random.default_rng(8)
+    ref = poisson_raster(30, 20.0, 500.0, rng)
+    tests = {"fine": perturbed(ref, rng, jitter_ms=0.01, drop=0.0, add=0.0),
+             "silent": frame([], []),
+             "coarse": perturbed(ref, rng, jitter_ms=0.5, drop=0.2, add=0.2)}
+    result = compare_many(ref, tests, costs={"fine": 10.0, "coarse": 1.0})
+    f = result.to_frame()
+    assert list(f["test"]) == ["fine", "silent", "coarse"] and f["test"].dtype == "string"
+    for name, row in zip(f["test"], f.itertuples(index=False)):
+        s = result.comparisons[name].summary
+        assert (row.n_ref, row.n_test, row.matched, row.missed, row.extra) == (
+            s["n_ref"], s["n_test"], s["matched"], s["missed"], s["extra"])
+    silent = f.set_index("test").loc["silent"]
+    assert silent["n_test"] == 0 and silent["missed_fraction"] == 1.0 and np.isnan(silent["shift_rms_ms"])
+    assert np.isnan(silent["cost"]) and not silent["on_front"]
+    assert f["matched"].dtype == np.int64 and f["diverged"].dtype == bool and f["on_front"].dtype == bool
+    assert f["shift_rms_ms"].dtype == np.float64 and f["cost"].dtype == np.float64
+    assert set(f.columns) == {"test"} | set(result.table.columns)
+
+
 def test_to_json_writes_nan_as_null(tmp_path):
     c = compare(frame([0], [1.0]), frame([1], [5.0]), n_cells=2, t_stop_ms=10.0)
     doc = json.loads(c.to_json(tmp_path / "c.json"))
@@ -278,3 +350,20 @@ def test_figures_are_drawn_and_written(tmp_path):
     assert all(p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" for p in paths)
     many = compare_many(ref, {"a": c.test, "b": ref}, costs={"a": 1.0, "b": 2.0})
     assert raster_plots.write_front(many, tmp_path / "figures", dpi=40).read_bytes()[:4] == b"\x89PNG"
+
+
+def test_raster_difference_says_which_subset_it_shows():
+    rng = np.random.default_rng(10)
+    ref = poisson_raster(80, 20.0, 1000.0, rng)
+    c = compare(ref, perturbed(ref, rng, jitter_ms=0.3))
+    firing = np.flatnonzero(ref.counts() + c.test.counts() > 0)
+    view = raster_plots.raster_difference_view(c)
+    assert list(view.cells) == list(firing[:50]) and (view.t_start_ms, view.t_stop_ms) == (0.0, 500.0)
+    assert view.description == (f"the first 50 of {firing.size} firing cells (ids {firing[0]}-{firing[49]}), "
+                                 "0-500 ms of 0-1000 ms")
+    title = raster_plots.plot_raster_difference(c).axes[0].get_title()
+    assert title == "Raster difference: " + view.description
+    whole = raster_plots.raster_difference_view(c, t_stop_ms=1000.0, max_cells=1000)
+    assert whole.description == f"all {firing.size} firing cells of 80, 0-1000 ms (the whole interval)"
+    chosen = raster_plots.raster_difference_view(c, cells=[3, 5], t_start_ms=100.0, t_stop_ms=200.0)
+    assert chosen.description == "2 chosen cells of 80, 100-200 ms of 0-1000 ms"

@@ -73,8 +73,8 @@ v_mv = {{ distribution = "uniform", low = -65.0, high = -50.0 }}
 [[pathway]]
 source = "a"
 target = "a"
-rule = "fixed-indegree"
-indegree = 2
+connect = "sources-per-target"
+sources_per_target = 2
 receptor = "inhibitory"
 weight_pa = 50.0
 delay_ms = 2.0

@@ -164,9 +164,9 @@ v_mv = {{ distribution = "uniform", low = -65.0, high = -50.0 }}
 [[pathway]]
 source = "e"
 target = "e"
-rule = "fixed-indegree"
-indegree = 10
+connect = "sources-per-target"
+sources_per_target = 10
 receptor = "inhibitory"
-weight_ns = 2.0
+weight_nsiemens = 2.0
 delay_ms = {{ distribution = "uniform", low = 1.0, high = 2.0 }}
 """

@@ -30,7 +30,7 @@ from spikegauge.errors import InputError
 from spikegauge.models import MODELS
 from spikegauge.network import build_network
 from spikegauge.network.drive import DriveStream
-from spikegauge.scenario import load_scenario
+from spikegauge.scenario import CONNECTS, load_scenario
 
 ROOT = Path(__file__).resolve().parents[1]
 SCENARIOS = sorted((ROOT / "scenarios").glob("*.toml"))
@@ -101,7 +101,7 @@ def mutated_scenarios(draw):
     done = []
     for _ in range(draw(st.integers(1, 3))):
         op = draw(st.sampled_from(["delete", "type", "number", "unknown-key", "group-name",
-                                   "units", "model", "shape", "rename-key"]))
+                                   "units", "model", "shape", "rename-key", "connect"]))
         paths = _paths(doc)
         if not paths:
             break
@@ -162,6 +162,19 @@ def mutated_scenarios(draw):
             doc[key] = draw(st.sampled_from([
                 [value] if isinstance(value, dict) else (value[0] if isinstance(value, list) and value else {}),
                 [], {}, 1, "x", [1, 2]]))
+        elif op == "connect":
+            # Another way to connect a pathway (or a name it does not have), with
+            # or without the key that kind needs and with the old one left behind.
+            pathways = [p for p in (doc.get("pathway") if isinstance(doc.get("pathway"), list) else [])
+                        if isinstance(p, dict)]
+            if not pathways:
+                continue
+            p = draw(st.sampled_from(pathways))
+            p["connect"] = draw(st.sampled_from([*CONNECTS, "fixed-indegree", "file", "Random", ""]))
+            key = draw(st.sampled_from([None, "sources_per_target", "p_connect", "edges", "rule"]))
+            if key is not None:
+                p[key] = draw(st.sampled_from([1, 3, 0.5, 0.0, 1.5, -1, "data/demo-input-spikes.csv",
+                                               "no-such-file.csv", "random"]))
         elif op == "rename-key":
             keyed = [p for p in paths if isinstance(p[-1], str)]
             path = draw(st.sampled_from(keyed))
@@ -310,7 +323,7 @@ name = "cells"
 size = 4
 model = "hh-squid"
 [group.parameters]
-g_k_ms_per_cm2 = {g_k!r}
+g_k_msiemens_per_cm2 = {g_k!r}
 [group.initial]
 v_mv = -65.0
 """)

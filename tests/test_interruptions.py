@@ -53,8 +53,8 @@ i_bias_pa = 200.0
 [[pathway]]
 source = "exc"
 target = "exc"
-rule = "fixed-indegree"
-indegree = 6
+connect = "sources-per-target"
+sources_per_target = 6
 receptor = "excitatory"
 weight_pa = 40.0
 delay_ms = { distribution = "uniform", low = 1.0, high = 2.0 }
@@ -62,8 +62,8 @@ delay_ms = { distribution = "uniform", low = 1.0, high = 2.0 }
 [[pathway]]
 source = "exc"
 target = "inh"
-rule = "fixed-indegree"
-indegree = 6
+connect = "sources-per-target"
+sources_per_target = 6
 receptor = "excitatory"
 weight_pa = 60.0
 delay_ms = 1.0
@@ -71,8 +71,8 @@ delay_ms = 1.0
 [[pathway]]
 source = "inh"
 target = "exc"
-rule = "fixed-indegree"
-indegree = 4
+connect = "sources-per-target"
+sources_per_target = 4
 receptor = "inhibitory"
 weight_pa = 100.0
 delay_ms = 1.0

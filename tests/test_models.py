@@ -65,10 +65,10 @@ def twin_lif_conductance(y, P):
 def twin_adex(y, P):
     """Brette & Gerstner 2005, J Neurophysiol 94:3637, eqs. (1)-(2), plus conductance synapses."""
     v, w, ge, gi = y
-    g_l, dt_ = P["g_l_ns"], P["delta_t_mv"]
+    g_l, dt_ = P["g_l_nsiemens"], P["delta_t_mv"]
     i = (-g_l * (v - P["e_l_mv"]) + g_l * dt_ * np.exp((v - P["v_t_mv"]) / dt_) - w
          + ge * (P["e_exc_mv"] - v) + gi * (P["e_inh_mv"] - v) + P["i_bias_pa"])
-    dw = (P["a_ns"] * (v - P["e_l_mv"]) - w) / P["tau_w_ms"]
+    dw = (P["a_nsiemens"] * (v - P["e_l_mv"]) - w) / P["tau_w_ms"]
     return np.array([i / P["c_m_pf"], dw, -ge / P["tau_syn_exc_ms"], -gi / P["tau_syn_inh_ms"]])
 
 
@@ -82,8 +82,8 @@ def twin_hh_squid(y, P):
     bh = 1 / (1 + np.exp(-(v + 35) / 10))
     an = 0.01 * (v + 55) / (1 - np.exp(-(v + 55) / 10))
     bn = 0.125 * np.exp(-(v + 65) / 80)
-    i = (P["i_bias_ua_per_cm2"] - P["g_na_ms_per_cm2"] * m**3 * h * (v - P["e_na_mv"])
-         - P["g_k_ms_per_cm2"] * n**4 * (v - P["e_k_mv"]) - P["g_l_ms_per_cm2"] * (v - P["e_l_mv"])
+    i = (P["i_bias_ua_per_cm2"] - P["g_na_msiemens_per_cm2"] * m**3 * h * (v - P["e_na_mv"])
+         - P["g_k_msiemens_per_cm2"] * n**4 * (v - P["e_k_mv"]) - P["g_l_msiemens_per_cm2"] * (v - P["e_l_mv"])
          + ge * (P["e_exc_mv"] - v) + gi * (P["e_inh_mv"] - v))
     return np.array([
         i / P["c_m_uf_per_cm2"],
@@ -110,8 +110,8 @@ def twin_hh_interneuron(y, P):
     bh = 1 / (np.exp(-0.1 * (v + 28)) + 1)
     an = -0.01 * (v + 34) / (np.exp(-0.1 * (v + 34)) - 1)
     bn = 0.125 * np.exp(-(v + 44) / 80)
-    i = (P["i_bias_ua_per_cm2"] - P["g_na_ms_per_cm2"] * minf**3 * h * (v - P["e_na_mv"])
-         - P["g_k_ms_per_cm2"] * n**4 * (v - P["e_k_mv"]) - P["g_l_ms_per_cm2"] * (v - P["e_l_mv"])
+    i = (P["i_bias_ua_per_cm2"] - P["g_na_msiemens_per_cm2"] * minf**3 * h * (v - P["e_na_mv"])
+         - P["g_k_msiemens_per_cm2"] * n**4 * (v - P["e_k_mv"]) - P["g_l_msiemens_per_cm2"] * (v - P["e_l_mv"])
          + ge * (P["e_exc_mv"] - v) + gi * (P["e_inh_mv"] - v))
     phi = P["phi"]
     return np.array([
@@ -131,12 +131,14 @@ def total_conductance(name, y, P):
     if name == "lif-conductance":
         return P["c_m_pf"] / P["tau_m_ms"] + y[1] + y[2]
     if name == "adex":
-        return P["g_l_ns"] + y[2] + y[3]
+        return P["g_l_nsiemens"] + y[2] + y[3]
     if name == "hh-squid":
         v, m, h, n, ge, gi = y
-        return P["g_na_ms_per_cm2"] * m**3 * h + P["g_k_ms_per_cm2"] * n**4 + P["g_l_ms_per_cm2"] + ge + gi
+        return (P["g_na_msiemens_per_cm2"] * m**3 * h + P["g_k_msiemens_per_cm2"] * n**4
+                + P["g_l_msiemens_per_cm2"] + ge + gi)
     v, h, n, ge, gi = y
-    return P["g_na_ms_per_cm2"] * _wb_minf(v)**3 * h + P["g_k_ms_per_cm2"] * n**4 + P["g_l_ms_per_cm2"] + ge + gi
+    return (P["g_na_msiemens_per_cm2"] * _wb_minf(v)**3 * h + P["g_k_msiemens_per_cm2"] * n**4
+            + P["g_l_msiemens_per_cm2"] + ge + gi)
 
 
 TWINS = {
@@ -512,7 +514,7 @@ def test_adex_exponential_is_capped_and_finite():
         assert np.all(np.isfinite(np.concatenate(call_split(spec, y, p))))
     # Beyond the cap the spike current is the paper's with the exponent held at
     # the cap, constant in V, so it drops out of the Jacobian.
-    g_l, c = p[keys.index("g_l_ns")], p[keys.index("c_m_pf")]
+    g_l, c = p[keys.index("g_l_nsiemens")], p[keys.index("c_m_pf")]
     y = np.array([v_t + 60 * d_t, 10.0, 1.0, 1.0])
     capped = twin("adex", y, p)
     capped[0] -= g_l * d_t * (math.exp(60.0) - math.exp(adex_module.EXP_ARG_MAX)) / c
@@ -614,10 +616,10 @@ def test_adex_without_adaptation_tends_to_lif_as_delta_t_shrinks():
     spec = MODELS["adex"]
     keys = spec.param_keys()
     p = spec.default_params()
-    p[keys.index("a_ns")] = 0.0
+    p[keys.index("a_nsiemens")] = 0.0
     p[keys.index("b_pa")] = 0.0
     p[P_IEXT] = 800.0
-    g_l, c, e_l = p[keys.index("g_l_ns")], p[keys.index("c_m_pf")], p[keys.index("e_l_mv")]
+    g_l, c, e_l = p[keys.index("g_l_nsiemens")], p[keys.index("c_m_pf")], p[keys.index("e_l_mv")]
     v_t, v_r, v_peak = p[keys.index("v_t_mv")], p[P_VRESET], p[P_VTH]
     tau = c / g_l
     v_inf = e_l + p[P_IEXT] / g_l

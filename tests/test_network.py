@@ -36,9 +36,9 @@ def group(name, size, model="lif-current", extra="") -> str:
     return f'\n[[group]]\nname = "{name}"\nsize = {size}\nmodel = "{model}"\n{extra}'
 
 
-def pathway(src, tgt, rule, weight="weight_pa = 10.0", delay="delay_ms = 1.0", receptor="excitatory",
+def pathway(src, tgt, connect, weight="weight_pa = 10.0", delay="delay_ms = 1.0", receptor="excitatory",
             extra="") -> str:
-    return (f'\n[[pathway]]\nsource = "{src}"\ntarget = "{tgt}"\nrule = "{rule}"\nreceptor = "{receptor}"\n'
+    return (f'\n[[pathway]]\nsource = "{src}"\ntarget = "{tgt}"\nconnect = "{connect}"\nreceptor = "{receptor}"\n'
             f'{weight}\n{delay}\n{extra}')
 
 
@@ -80,11 +80,11 @@ def edges_of(net):
 # -- connectivity ------------------------------------------------------------
 
 
-def test_fixed_indegree_exact_distinct_no_self(tmp_path):
+def test_sources_per_target_exact_distinct_no_self(tmp_path):
     text = (header() + group("e", 300) + group("i", 60)
-            + pathway("e", "e", "fixed-indegree", extra="indegree = 40")
-            + pathway("i", "e", "fixed-indegree", receptor="inhibitory", extra="indegree = 60")
-            + pathway("i", "i", "fixed-indegree", receptor="inhibitory", extra="indegree = 59"))
+            + pathway("e", "e", "sources-per-target", extra="sources_per_target = 40")
+            + pathway("i", "e", "sources-per-target", receptor="inhibitory", extra="sources_per_target = 60")
+            + pathway("i", "i", "sources-per-target", receptor="inhibitory", extra="sources_per_target = 59"))
     _, net = build_text(tmp_path, text)
     src, tgt, _, _, rec = edges_of(net)
     e_src = (src < 300) & (tgt < 300)
@@ -103,13 +103,13 @@ def test_fixed_indegree_exact_distinct_no_self(tmp_path):
 
 
 @pytest.mark.parametrize("n, k", [(1000, 20), (400, 300)], ids=["sparse", "dense"])
-def test_fixed_indegree_sources_are_uniform(tmp_path, n, k):
+def test_sources_per_target_sources_are_uniform(tmp_path, n, k):
     # Every source is a candidate for n - 1 targets, each choosing it with
     # probability k / (n - 1) independently of the other targets, so each
     # out-degree is Binomial(n - 1, k / (n - 1)) (scipy.stats.binom; chi-square
     # goodness of fit over the n sources, whose only dependence is the fixed total).
     # The two cases exercise both sampling branches (redraw duplicates / permutation).
-    text = header() + group("e", n) + pathway("e", "e", "fixed-indegree", extra=f"indegree = {k}")
+    text = header() + group("e", n) + pathway("e", "e", "sources-per-target", extra=f"sources_per_target = {k}")
     _, net = build_text(tmp_path, text)
     src, tgt, *_ = edges_of(net)
     assert not np.any(src == tgt)
@@ -119,9 +119,9 @@ def test_fixed_indegree_sources_are_uniform(tmp_path, n, k):
     assert chi2_discrete_pvalue(out_degree, stats.binom(n - 1, k / (n - 1))) > ALPHA
 
 
-def test_fixed_probability_degrees_within_binomial_bounds(tmp_path):
+def test_random_pairs_degrees_within_binomial_bounds(tmp_path):
     n, p = 400, 0.05
-    text = header() + group("e", n) + pathway("e", "e", "fixed-probability", extra=f"probability = {p}")
+    text = header() + group("e", n) + pathway("e", "e", "random", extra=f"p_connect = {p}")
     _, net = build_text(tmp_path, text)
     src, tgt, *_ = edges_of(net)
     assert not np.any(src == tgt)
@@ -137,7 +137,7 @@ def test_fixed_probability_degrees_within_binomial_bounds(tmp_path):
 
 def test_probability_one_and_all_to_all_and_one_to_one(tmp_path):
     text = (header() + group("a", 7) + group("b", 7)
-            + pathway("a", "a", "fixed-probability", extra="probability = 1.0")
+            + pathway("a", "a", "random", extra="p_connect = 1.0")
             + pathway("a", "b", "all-to-all") + pathway("b", "a", "one-to-one")
             + pathway("b", "b", "all-to-all", extra="self_connections = true"))
     _, net = build_text(tmp_path, text)
@@ -152,8 +152,8 @@ def test_probability_one_and_all_to_all_and_one_to_one(tmp_path):
 
 def test_csr_is_sorted_by_source_then_target(tmp_path):
     _, net = build_text(tmp_path, header() + group("e", 200) + pathway(
-        "e", "e", "fixed-probability", extra="probability = 0.1") + pathway(
-        "e", "e", "fixed-indegree", receptor="inhibitory", extra="indegree = 5"))
+        "e", "e", "random", extra="p_connect = 0.1") + pathway(
+        "e", "e", "sources-per-target", receptor="inhibitory", extra="sources_per_target = 5"))
     assert net.syn_ptr[0] == 0 and net.syn_ptr[-1] == net.n_synapses
     for s in range(net.n_cells):
         t = net.syn_target[net.syn_ptr[s]:net.syn_ptr[s + 1]]
@@ -191,10 +191,10 @@ def test_bench_lif_network_shape():
 def test_delays_and_weights_follow_their_distributions(tmp_path):
     # References: scipy.stats.uniform, truncnorm and lognorm; Kolmogorov-Smirnov at a fixed seed.
     text = (header() + group("e", 400)
-            + pathway("e", "e", "fixed-indegree", extra="indegree = 10",
+            + pathway("e", "e", "sources-per-target", extra="sources_per_target = 10",
                       delay='delay_ms = { distribution = "uniform", low = 0.5, high = 2.5 }',
                       weight='weight_pa = { distribution = "normal", mean = 20.0, std = 8.0, low = 5.0 }')
-            + pathway("e", "e", "fixed-indegree", receptor="inhibitory", extra="indegree = 10",
+            + pathway("e", "e", "sources-per-target", receptor="inhibitory", extra="sources_per_target = 10",
                       delay='delay_ms = { distribution = "lognormal", mean = 2.0, std = 0.5 }',
                       weight='weight_pa = { distribution = "uniform", low = 1.0, high = 4.0 }'))
     _, net = build_text(tmp_path, text)
@@ -225,7 +225,7 @@ def test_edge_list_file_round_trips_exactly(tmp_path, fmt):
     else:
         np.savez(tmp_path / "edges.npz", source=s, target=t, delay_ms=d, weight=w)
     text = (header() + group("a", 30) + group("b", 20)
-            + pathway("a", "b", "file", weight="", delay="", extra=f'file = "edges.{fmt}"'))
+            + pathway("a", "b", "edge-list", weight="", delay="", extra=f'edges = "edges.{fmt}"'))
     _, net = build_text(tmp_path, text)
     src, tgt, delay, weight, _ = edges_of(net)
     got = sorted(zip(src.tolist(), (tgt - 30).tolist(), delay.tolist(), weight.tolist()))

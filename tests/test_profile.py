@@ -42,8 +42,8 @@ i_bias_pa = 190.0
 [[pathway]]
 source = "exc"
 target = "exc"
-rule = "fixed-indegree"
-indegree = 3
+connect = "sources-per-target"
+sources_per_target = 3
 receptor = "excitatory"
 weight_pa = 40.0
 delay_ms = { distribution = "uniform", low = 2.0, high = 3.0 }
@@ -51,8 +51,8 @@ delay_ms = { distribution = "uniform", low = 2.0, high = 3.0 }
 [[pathway]]
 source = "exc"
 target = "inh"
-rule = "fixed-indegree"
-indegree = 4
+connect = "sources-per-target"
+sources_per_target = 4
 receptor = "excitatory"
 weight_pa = 50.0
 delay_ms = 2.0
@@ -60,8 +60,8 @@ delay_ms = 2.0
 [[pathway]]
 source = "inh"
 target = "exc"
-rule = "fixed-indegree"
-indegree = 2
+connect = "sources-per-target"
+sources_per_target = 2
 receptor = "inhibitory"
 weight_pa = 100.0
 delay_ms = 2.0

@@ -42,8 +42,8 @@ v_mv = { distribution = "uniform", low = -65.0, high = -52.0 }
 [[pathway]]
 source = "exc"
 target = "exc"
-rule = "fixed-indegree"
-indegree = 3
+connect = "sources-per-target"
+sources_per_target = 3
 receptor = "excitatory"
 weight_pa = 40.0
 delay_ms = { distribution = "uniform", low = 1.0, high = 2.0 }
@@ -88,25 +88,25 @@ v_mv = -62.0
 [[pathway]]
 source = "a"
 target = "b"
-rule = "all-to-all"
+connect = "all-to-all"
 receptor = "excitatory"
-weight_ms_per_cm2 = 0.15
+weight_msiemens_per_cm2 = 0.15
 delay_ms = 1.5
 
 [[pathway]]
 source = "a"
 target = "c"
-rule = "all-to-all"
+connect = "all-to-all"
 receptor = "excitatory"
-weight_ms_per_cm2 = 0.1
+weight_msiemens_per_cm2 = 0.1
 delay_ms = 2.0
 
 [[pathway]]
 source = "b"
 target = "c"
-rule = "all-to-all"
+connect = "all-to-all"
 receptor = "excitatory"
-weight_ms_per_cm2 = 0.1
+weight_msiemens_per_cm2 = 0.1
 delay_ms = 1.0
 """
 

@@ -42,8 +42,8 @@ model = "hh-squid"
 [[pathway]]
 source = "exc"
 target = "exc"
-rule = "fixed-indegree"
-indegree = 4
+connect = "sources-per-target"
+sources_per_target = 4
 receptor = "excitatory"
 weight_pa = 10.0
 delay_ms = { distribution = "uniform", low = 1.0, high = 2.0 }
@@ -51,10 +51,10 @@ delay_ms = { distribution = "uniform", low = 1.0, high = 2.0 }
 [[pathway]]
 source = "exc"
 target = "hh"
-rule = "fixed-probability"
-probability = 0.3
+connect = "random"
+p_connect = 0.3
 receptor = "inhibitory"
-weight_ms_per_cm2 = 0.1
+weight_msiemens_per_cm2 = 0.1
 delay_ms = 1.5
 
 [[drive]]
@@ -91,7 +91,7 @@ def test_base_scenario_loads(tmp_path):
     assert sc.pathways[1].target_index == 1 and sc.pathways[1].weight == Constant(0.1)
     assert sc.drives[0].stop_ms == 100.0, "a Poisson drive runs to the end by default"
     assert list(sc.group_first) == [0, 20, 25]
-    # fixed-indegree 4 * 20 targets + expected 0.3 * 20 * 5 (exact arithmetic)
+    # sources-per-target 4 * 20 targets + expected 0.3 * 20 * 5 (exact arithmetic)
     assert sc.expected_synapses() == pytest.approx(80 + 30)
 
 
@@ -109,7 +109,7 @@ def test_bundled_benchmarks_match_spec():
     assert lif.integration.as_dict() == dict(strategy="fixed", stepper="euler", dt_ms=0.1,
                                              crossing="step", delivery="grid")
     assert lif.duration_ms == 1000.0
-    assert [p.indegree for p in lif.pathways] == [80, 80, 20, 20]
+    assert [p.sources_per_target for p in lif.pathways] == [80, 80, 20, 20]
     assert all(p.delay_ms == Uniform(1.0, 3.0) and not p.self_connections for p in lif.pathways)
     assert [p.weight for p in lif.pathways] == [Constant(1.5), Constant(1.5), Constant(15.0), Constant(15.0)]
     assert lif.groups[0].parameters["i_bias_pa"] == Uniform(200.0, 300.0)
@@ -119,7 +119,7 @@ def test_bundled_benchmarks_match_spec():
     assert hh.integration.as_dict() == dict(strategy="fixed", stepper="rk4", dt_ms=0.01,
                                             crossing="linear", delivery="grid")
     assert hh.duration_ms == 200.0
-    assert [p.indegree for p in hh.pathways] == [40, 40, 10, 10]
+    assert [p.sources_per_target for p in hh.pathways] == [40, 40, 10, 10]
     assert [p.weight for p in hh.pathways] == [Constant(0.015), Constant(0.015), Constant(0.1), Constant(0.1)]
     assert hh.groups[1].parameters["i_bias_ua_per_cm2"] == Uniform(0.0, 10.0)
     assert hh.groups[1].initial["v_mv"] == Uniform(-70.0, -60.0)
@@ -149,12 +149,13 @@ MALFORMED = [
     pytest.param(('name = "t"\n', ''), ["scenario", "missing key 'name'"], id="missing-key"),
     pytest.param(('target = "hh"', 'target = "hhh"'), ["pathway[1].target", "no group named 'hhh'",
                                                         "did you mean 'hh'"], id="unknown-group"),
-    pytest.param(("indegree = 4", "indegree = 20"), ["pathway[0].indegree", "only 19 are available",
-                                                     "minus the target cell itself"], id="indegree-too-large"),
-    pytest.param(("weight_ms_per_cm2 = 0.1", "weight_ns = 0.1"),
-                 ["pathway[1].weight_ns", "weight_ms_per_cm2", "hh-squid"], id="weight-wrong-units"),
-    pytest.param(("tau_m_ms = 15.0", "g_na_ms_per_cm2 = 100.0"),
-                 ["group[0].parameters.g_na_ms_per_cm2", "belongs to hh-squid", "lif-current takes:", "tau_m_ms"],
+    pytest.param(("sources_per_target = 4", "sources_per_target = 20"),
+                 ["pathway[0].sources_per_target", "only 19 are available", "minus the target cell itself"],
+                 id="sources-per-target-too-large"),
+    pytest.param(("weight_msiemens_per_cm2 = 0.1", "weight_nsiemens = 0.1"),
+                 ["pathway[1].weight_nsiemens", "weight_msiemens_per_cm2", "hh-squid"], id="weight-wrong-units"),
+    pytest.param(("tau_m_ms = 15.0", "g_na_msiemens_per_cm2 = 100.0"),
+                 ["group[0].parameters.g_na_msiemens_per_cm2", "belongs to hh-squid", "lif-current takes:", "tau_m_ms"],
                  id="parameter-wrong-model"),
     pytest.param(("tau_m_ms = 15.0", "tau_m_ms = -3"),
                  ["group[0].parameters.tau_m_ms: must be positive, got -3"], id="negative-parameter"),
@@ -166,9 +167,15 @@ MALFORMED = [
                  ["group[1].initial.v_mv", "within [-200, 200]"], id="voltage-out-of-bounds"),
     pytest.param(('model = "hh-squid"', 'model = "hh-sqiud"'), ["group[1].model", "did you mean 'hh-squid'"],
                  id="unknown-model"),
-    pytest.param(('rule = "fixed-probability"', 'rule = "fixed-probability"\nindegree = 3'),
-                 ["pathway[1].indegree", "only used with rule = \"fixed-indegree\""], id="key-of-other-rule"),
-    pytest.param(("probability = 0.3", "probability = 1.3"), ["pathway[1].probability", "[0, 1]"],
+    pytest.param(('connect = "random"', 'connect = "random"\nsources_per_target = 3'),
+                 ["pathway[1].sources_per_target", "only used with connect = \"sources-per-target\""],
+                 id="key-of-other-connect"),
+    pytest.param(('connect = "random"', 'rule = "random"'), ["pathway[1].rule: unknown key", "connect"],
+                 id="no-rule-key"),
+    pytest.param(('connect = "random"', 'connect = "fixed-probability"'),
+                 ["pathway[1].connect", "sources-per-target, random, one-to-one, all-to-all, edge-list"],
+                 id="unknown-connect"),
+    pytest.param(("p_connect = 0.3", "p_connect = 1.3"), ["pathway[1].p_connect", "[0, 1]"],
                  id="probability-above-one"),
     pytest.param(('strategy = "fixed"', 'strategy = "fixd"'), ["integration.strategy", "did you mean 'fixed'"],
                  id="unknown-strategy"),
@@ -217,7 +224,7 @@ def test_memory_estimate_over_limit_names_estimate_and_option(tmp_path):
 
 def test_memory_estimate_counts_synapses(tmp_path):
     small = load_text(tmp_path, BASE)
-    big = load_text(tmp_path, BASE.replace("indegree = 4", "indegree = 19"))
+    big = load_text(tmp_path, BASE.replace("sources_per_target = 4", "sources_per_target = 19"))
     # 15 more synapses per target for 20 targets, at the documented build cost per synapse.
     from spikegauge.scenario import BUILD_BYTES_PER_SYNAPSE
     assert estimate_memory_bytes(big) - estimate_memory_bytes(small) == 15 * 20 * BUILD_BYTES_PER_SYNAPSE
@@ -239,10 +246,10 @@ def test_per_cell_values_from_files(tmp_path):
 
 def test_edge_file_errors(tmp_path):
     (tmp_path / "edges.csv").write_text("source,target,delay_ms\n0,1,1.0\n3,2,0.0\n")
-    text = BASE.replace('rule = "fixed-probability"\nprobability = 0.3', 'rule = "file"\nfile = "edges.csv"').replace(
+    text = BASE.replace('connect = "random"\np_connect = 0.3', 'connect = "edge-list"\nedges = "edges.csv"').replace(
         "delay_ms = 1.5\n", "")
     msg = error_of(tmp_path, text)
-    assert "pathway[1].file" in msg and "row 1" in msg and "delay_ms must be positive" in msg
+    assert "pathway[1].edges" in msg and "row 1" in msg and "delay_ms must be positive" in msg
     (tmp_path / "edges.csv").write_text("source,target,delay_ms\n0,1,1.0\n3,5,2.0\n")
     msg = error_of(tmp_path, text)
     assert "target 5 is not a cell index of group 'hh' (0..4)" in msg

@@ -151,3 +151,30 @@ def test_simulate_command_memory_limit_option(tmp_path):
     assert res.exit_code == 2
     assert "max_memory_gb" in res.output and "GB" in res.output
     assert not (tmp_path / "x").exists()
+
+
+def test_simulate_command_stops_early_with_t_stop_ms(tmp_path):
+    # The stopped run is the whole run cut short: the same network and drive, so the
+    # spikes before the stop time are the whole run's, bit for bit.
+    args = ["simulate", "scenarios/demo-lif.toml", "--stepper", "rk2", "--dt-ms", "0.1", "--crossing",
+            "linear", "--delivery", "grid", "--quiet"]
+    res = CliRunner().invoke(cli, [*args, "--t-stop-ms", "100", "--out", str(tmp_path / "short")])
+    assert res.exit_code == 0, res.output
+    assert "over 100 ms" in res.output
+    short = spikegauge.load_run(tmp_path / "short")
+    assert short.t_stop_ms == 100.0 and len(short.spikes) > 0
+    assert short.spikes["time_ms"].max() < 100.0
+    whole = spikegauge.simulate("scenarios/demo-lif.toml", stepper="rk2", dt_ms=0.1, crossing="linear",
+                                delivery="grid")
+    before = whole.spikes[whole.spikes["time_ms"] < 100.0].reset_index(drop=True)
+    np.testing.assert_array_equal(short.spikes["cell"].to_numpy(), before["cell"].to_numpy())
+    np.testing.assert_array_equal(short.spikes["time_ms"].to_numpy(), before["time_ms"].to_numpy())
+
+
+def test_simulate_command_t_stop_ms_help_and_refusal(tmp_path):
+    assert "--t-stop-ms" in CliRunner().invoke(cli, ["simulate", "--help"]).output
+    res = CliRunner().invoke(cli, ["simulate", "scenarios/demo-lif.toml", "--t-stop-ms", "2000", "--quiet",
+                                   "--out", str(tmp_path / "x")])
+    assert res.exit_code == 2
+    assert res.output.count("\n") == 1 and "--t-stop-ms" in res.output and "1000" in res.output
+    assert not (tmp_path / "x").exists()

@@ -524,8 +524,8 @@ def format_report(res: dict) -> str:
         x = d[key]
         lines.append(f"{name}: loop {f(res[key + '_loop_s_1t'])} s (1t), "
                      f"{f(res[key + '_loop_s_2t'])} s (2t); {x['spikes']} spikes, "
-                     f"{x['rate_hz']:.2f} Hz; {x['neuron_steps_per_s']:.3g} neuron-steps/s, "
-                     f"{x['syn_events_per_s']:.3g} syn-events/s (1t); identical across threads: "
+                     f"{x['rate_hz']:.2f} Hz; {x['neuron_steps_per_s']:.3g} cell-steps/s, "
+                     f"{x['syn_events_per_s']:.3g} synaptic events/s (1t); identical across threads: "
                      f"{x['identical_across_threads']}")
     s = d["single_hh"]
     lines.append(f"single HH: local-adaptive dp54 rtol {f(s.get('adaptive_rtol'), 'g')} "

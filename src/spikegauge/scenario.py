@@ -36,7 +36,7 @@ from .models.base import RECEPTOR_EXC, RECEPTOR_INH, ModelSpec
 STRATEGIES = ("fixed", "global-adaptive", "local-adaptive", "exact")
 CROSSINGS = ("step", "linear", "hermite", "dense")
 DELIVERIES = ("grid", "exact")
-RULES = ("fixed-indegree", "fixed-probability", "one-to-one", "all-to-all", "file")
+CONNECTS = ("sources-per-target", "random", "one-to-one", "all-to-all", "edge-list")
 RECEPTORS = {"excitatory": RECEPTOR_EXC, "inhibitory": RECEPTOR_INH}
 DRIVE_KINDS = ("poisson", "bias", "step", "spikes")
 
@@ -108,34 +108,38 @@ class EdgeList:
 class Pathway:
     """Connections from one group to another (or to itself).
 
-    ``weight`` is in the target model's weight unit; it is None only for a
-    ``file`` rule whose file has a weight column. ``delay_ms`` is None only for
-    the ``file`` rule (delays come from the file).
+    ``connect`` says how cells are paired: ``sources-per-target`` (every target
+    gets ``sources_per_target`` distinct sources), ``random`` (each ordered pair
+    independently with probability ``p_connect``), ``one-to-one``, ``all-to-all``
+    or ``edge-list`` (pairs read from the file ``edges``). ``weight`` is in the
+    target model's weight unit; it is None only for an ``edge-list`` pathway
+    whose file has a weight column. ``delay_ms`` is None only for ``edge-list``
+    (delays come from the file).
     """
 
     source: str
     target: str
     source_index: int
     target_index: int
-    rule: str
+    connect: str
     receptor: str
     self_connections: bool
     weight: ValueSpec | None
     delay_ms: ValueSpec | None
-    indegree: int | None = None
-    probability: float | None = None
+    sources_per_target: int | None = None
+    p_connect: float | None = None
     edges: EdgeList | None = None
 
     def expected_count(self, n_source: int, n_target: int) -> float:
-        """Expected number of connections (exact for every rule but fixed-probability)."""
+        """Expected number of connections (exact for every kind but ``random``)."""
         same = self.source_index == self.target_index and not self.self_connections
-        if self.rule == "fixed-indegree":
-            return float(self.indegree * n_target)
-        if self.rule == "fixed-probability":
-            return self.probability * n_target * (n_source - (1 if same else 0))
-        if self.rule == "one-to-one":
+        if self.connect == "sources-per-target":
+            return float(self.sources_per_target * n_target)
+        if self.connect == "random":
+            return self.p_connect * n_target * (n_source - (1 if same else 0))
+        if self.connect == "one-to-one":
             return float(n_target)
-        if self.rule == "all-to-all":
+        if self.connect == "all-to-all":
             return float(n_target * (n_source - (1 if same else 0)))
         return float(self.edges.source.size)
 
@@ -494,49 +498,49 @@ class _Parser:
         src, tgt = groups[si], groups[ti]
         spec = tgt.spec
         wkey = spec.weight_key
-        allowed = ("source", "target", "rule", "indegree", "probability", "file", "self_connections",
-                   "receptor", wkey, "delay_ms")
-        self.keys(w, t, allowed, ("rule", "receptor"),
+        allowed = ("source", "target", "connect", "sources_per_target", "p_connect", "edges",
+                   "self_connections", "receptor", wkey, "delay_ms")
+        self.keys(w, t, allowed, ("connect", "receptor"),
                   hint_for=lambda k: _weight_key_hint(k, spec, tgt.name))
-        rule = self.string(f"{w}.rule", t["rule"], RULES)
+        connect = self.string(f"{w}.connect", t["connect"], CONNECTS)
         receptor = self.string(f"{w}.receptor", t["receptor"], tuple(RECEPTORS))
         self_conn = self.boolean(f"{w}.self_connections", t.get("self_connections", False))
         same = si == ti and not self_conn
-        rule_keys = {"fixed-indegree": "indegree", "fixed-probability": "probability", "file": "file"}
-        for r, k in rule_keys.items():
-            if k in t and rule != r:
-                raise self.err(f"{w}.{k}", f"only used with rule = \"{r}\", not \"{rule}\"")
-            if rule == r and k not in t:
-                raise self.err(w, f"missing key '{k}' (rule = \"{rule}\")")
+        connect_keys = {"sources-per-target": "sources_per_target", "random": "p_connect", "edge-list": "edges"}
+        for c, k in connect_keys.items():
+            if k in t and connect != c:
+                raise self.err(f"{w}.{k}", f"only used with connect = \"{c}\", not \"{connect}\"")
+            if connect == c and k not in t:
+                raise self.err(w, f"missing key '{k}' (connect = \"{connect}\")")
 
-        indegree = probability = edges = None
-        if rule == "fixed-indegree":
-            indegree = self.integer(f"{w}.indegree", t["indegree"], positive=True)
+        sources_per_target = p_connect = edges = None
+        if connect == "sources-per-target":
+            sources_per_target = self.integer(f"{w}.sources_per_target", t["sources_per_target"], positive=True)
             available = src.size - (1 if same else 0)
-            if indegree > available:
+            if sources_per_target > available:
                 why = f"group '{src.name}' has {src.size} cells" + (
                     ", minus the target cell itself since self_connections = false" if same else "")
-                raise self.err(f"{w}.indegree", f"{indegree} distinct sources asked for, but only "
-                                                f"{available} are available ({why})")
-        elif rule == "fixed-probability":
-            probability = self.number(f"{w}.probability", t["probability"])
-            if not 0 <= probability <= 1:
-                raise self.err(f"{w}.probability", f"must lie in [0, 1], got {_fmt(probability)}")
-        elif rule == "one-to-one":
+                raise self.err(f"{w}.sources_per_target", f"{sources_per_target} distinct sources asked for, "
+                                                          f"but only {available} are available ({why})")
+        elif connect == "random":
+            p_connect = self.number(f"{w}.p_connect", t["p_connect"])
+            if not 0 <= p_connect <= 1:
+                raise self.err(f"{w}.p_connect", f"must lie in [0, 1], got {_fmt(p_connect)}")
+        elif connect == "one-to-one":
             if src.size != tgt.size:
-                raise self.err(f"{w}.rule", f"one-to-one needs groups of equal size; '{src.name}' has "
-                                            f"{src.size} cells, '{tgt.name}' has {tgt.size}")
+                raise self.err(f"{w}.connect", f"one-to-one needs groups of equal size; '{src.name}' has "
+                                               f"{src.size} cells, '{tgt.name}' has {tgt.size}")
             if same:
-                raise self.err(f"{w}.rule", "one-to-one from a group to itself connects each cell to "
-                                            "itself; set self_connections = true")
-        elif rule == "all-to-all" and same and src.size == 1:
-            raise self.err(f"{w}.rule", f"group '{src.name}' has one cell and self_connections = false, "
-                                        "so all-to-all makes no connection")
+                raise self.err(f"{w}.connect", "one-to-one from a group to itself connects each cell to "
+                                               "itself; set self_connections = true")
+        elif connect == "all-to-all" and same and src.size == 1:
+            raise self.err(f"{w}.connect", f"group '{src.name}' has one cell and self_connections = false, "
+                                           "so all-to-all makes no connection")
 
-        if rule == "file":
+        if connect == "edge-list":
             if "delay_ms" in t:
-                raise self.err(f"{w}.delay_ms", "delays of a file pathway come from the file's delay_ms column")
-            edges = self.edge_file(f"{w}.file", t["file"], src, tgt, same)
+                raise self.err(f"{w}.delay_ms", "delays of an edge-list pathway come from the file's delay_ms column")
+            edges = self.edge_file(f"{w}.edges", t["edges"], src, tgt, same)
             if edges.weight is not None and wkey in t:
                 raise self.err(f"{w}.{wkey}", "the file has a weight column; give weights in one place only")
             if edges.weight is None and wkey not in t:
@@ -549,9 +553,9 @@ class _Parser:
                 raise self.err(w, f"missing key '{wkey}' (weights into '{tgt.name}', a {tgt.model} group)")
             delay = self.value(f"{w}.delay_ms", t["delay_ms"], positive=True)
         weight = self.value(f"{w}.{wkey}", t[wkey], nonnegative=True) if wkey in t else None
-        return Pathway(source=src.name, target=tgt.name, source_index=si, target_index=ti, rule=rule,
+        return Pathway(source=src.name, target=tgt.name, source_index=si, target_index=ti, connect=connect,
                        receptor=receptor, self_connections=self_conn, weight=weight, delay_ms=delay,
-                       indegree=indegree, probability=probability, edges=edges)
+                       sources_per_target=sources_per_target, p_connect=p_connect, edges=edges)
 
     def edge_file(self, where: str, raw, src: Group, tgt: Group, same: bool) -> EdgeList:
         path = (self.base_dir / self.string(where, raw)).resolve()
@@ -651,7 +655,7 @@ def _param_sign(key: str) -> tuple[bool, bool]:
     """
     if key.endswith(("_pf", "_uf_per_cm2")) or (key.startswith("tau") and key.endswith("_ms")):
         return True, False
-    if key.endswith("_ms") or (key.startswith("g_") and key.endswith(("_ns", "_ms_per_cm2"))):
+    if key.endswith("_ms") or (key.startswith("g_") and key.endswith(("_nsiemens", "_msiemens_per_cm2"))):
         return False, True
     return False, False
 

@@ -84,7 +84,7 @@ def resolve_settings(scenario, strategy=None, stepper=None, dt_ms=None, crossing
         for key in ("dt_ms", "delivery"):
             if given[key] is not None:
                 raise InputError(f"{key}: applies to the fixed strategy, not to {strategy!r} "
-                                 "(every arrival ends an adaptive step exactly)")
+                                 "(every synaptic event ends an adaptive step exactly)")
         if out["crossing"] != "dense":
             raise InputError(f"crossing: adaptive strategies locate crossings on dense output; "
                              f"'dense' is the only choice, got {out['crossing']!r}")
@@ -158,13 +158,13 @@ def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, d
     settings = resolve_settings(scen, strategy, stepper, dt_ms, crossing, delivery, rtol, atol)
     t_stop = float(network.t_stop_ms if t_stop_ms is None else t_stop_ms)
     if not (t_stop > 0 and math.isfinite(t_stop)):
-        raise InputError(f"t_stop_ms: must be a positive number, got {t_stop!r}")
+        raise InputError(f"t_stop_ms (--t-stop-ms): must be a positive number, got {t_stop!r}")
     if settings["strategy"] == "fixed" and settings["dt_ms"] > t_stop:
         raise InputError(f"dt_ms: a time step of {settings['dt_ms']:g} ms is longer than the run "
                          f"({t_stop:g} ms)")
     if t_stop > network.t_stop_ms:
         # The drive (Poisson trains, step ends, input spikes) is defined up to the duration only.
-        raise InputError(f"t_stop_ms: must not exceed the scenario's duration_ms = "
+        raise InputError(f"t_stop_ms (--t-stop-ms): must not exceed the scenario's duration_ms = "
                          f"{network.t_stop_ms:g}, got {t_stop:g}")
     if threads is not None and not 1 <= int(threads) <= numba.config.NUMBA_NUM_THREADS:
         raise InputError(f"threads: must be between 1 and {numba.config.NUMBA_NUM_THREADS}, got {threads}")

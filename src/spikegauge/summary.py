@@ -32,7 +32,7 @@ def summarize(scenario: Scenario, network: Network) -> Summary:
         ``data`` keys: ``name``, ``file``, ``duration_ms``, ``seed``,
         ``integration`` (settings the file gives), ``cells``, ``groups`` (name,
         model, size, first cell id, connections in), ``connections``,
-        ``pathways`` (source, target, rule, receptor, connections),
+        ``pathways`` (source, target, connect, receptor, connections),
         ``min_delay_ms`` (None without connections), ``drive_events_per_s``
         (expected drive events per second of simulated time, averaged over the
         run), ``drives`` (kind, target, events_per_s), ``memory_estimate_gb``,
@@ -46,7 +46,7 @@ def summarize(scenario: Scenario, network: Network) -> Summary:
         for i, g in enumerate(scenario.groups)
     ]
     pathways = [
-        dict(source=p.source, target=p.target, rule=p.rule, receptor=p.receptor,
+        dict(source=p.source, target=p.target, connect=p.connect, receptor=p.receptor,
              connections=_pathway_count(network, scenario, i))
         for i, p in enumerate(scenario.pathways)
     ]
@@ -116,7 +116,7 @@ def _text(d: dict) -> str:
     lines.append(f"connections: {d['connections']}")
     for p in d["pathways"]:
         n = "merged" if p["connections"] is None else str(p["connections"])
-        lines.append(f"  {p['source']} -> {p['target']:<10} {p['rule']:<18} {p['receptor']:<11} {n:>9}")
+        lines.append(f"  {p['source']} -> {p['target']:<10} {p['connect']:<18} {p['receptor']:<11} {n:>9}")
     lines.append("minimum delay: " + ("none (no connections)" if d["min_delay_ms"] is None
                                       else f"{d['min_delay_ms']:.6g} ms"))
     lines.append(f"drive events: {d['drive_events_per_s']:.6g} per second (expected)")

@@ -71,6 +71,25 @@ class Comparison:
         keep = self.matching.test_partner < 0
         return pd.DataFrame({"cell": self.test.cell[keep], "time_ms": self.test.time_ms[keep]})
 
+    def to_frame(self) -> pd.DataFrame:
+        """The per-cell figures as a tidy table: one row per cell, one column per figure.
+
+        Returns
+        -------
+        DataFrame, shape (n_cells, 17)
+            The columns of :attr:`per_cell`: ``cell`` (int64), ``group``
+            (categorical, in the rasters' group order), the spike counts
+            ``n_ref``, ``n_test``, ``matched``, ``missed``, ``extra`` (int64),
+            and float64 figures (NaN where undefined): ``rate_ref_hz``,
+            ``rate_test_hz``, ``rate_error_hz``, ``shift_mean_ms``,
+            ``shift_rms_ms``, ``van_rossum``, ``victor_purpura``,
+            ``coincidence_factor``, ``cv_ref``, ``cv_test``.
+        """
+        out = self.per_cell.copy()
+        out["group"] = pd.Categorical(out["group"], categories=list(self.reference.group_names))
+        return _typed(out, ints=("cell", "n_ref", "n_test", "matched", "missed", "extra"),
+                      keep=("group",))
+
     def to_dict(self) -> dict:
         """Summary, settings, per-group summary and windows as plain JSON-ready values."""
         return jsonable({"summary": self.summary, "settings": self.settings,
@@ -80,6 +99,28 @@ class Comparison:
     def to_json(self, path=None, indent: int = 1) -> str:
         """JSON text of :meth:`to_dict` (NaN written as null); also written to ``path`` if given."""
         return _json_text(self.to_dict(), path, indent)
+
+
+_INT_FIGURES = ("n_cells", "n_ref", "n_test", "matched", "missed", "extra", "coincidence_factor_undefined",
+                "duplicates_ref", "duplicates_test")
+"""Summary figures that are counts (int64 in tables); ``diverged`` is bool, the rest float64."""
+
+
+def _typed(frame: pd.DataFrame, ints=(), bools=(), strings=(), keep=()) -> pd.DataFrame:
+    """``frame`` with fixed dtypes: int64, bool and string where named, float64 elsewhere (None -> NaN)."""
+    out = {}
+    for col in frame.columns:
+        if col in keep:
+            out[col] = frame[col]
+        elif col in ints:
+            out[col] = frame[col].astype(np.int64)
+        elif col in bools:
+            out[col] = frame[col].astype(bool)
+        elif col in strings:
+            out[col] = frame[col].astype("string")
+        else:
+            out[col] = pd.to_numeric(frame[col], errors="coerce").astype(np.float64)
+    return pd.DataFrame(out, index=frame.index)
 
 
 def _json_text(data, path, indent: int) -> str:
@@ -319,6 +360,23 @@ class ComparisonSet:
     table: pd.DataFrame
     front: pd.DataFrame | None
     accuracy_key: str
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per test raster, its summary figures as columns.
+
+        Returns
+        -------
+        DataFrame, shape (n_tests, 1 + n_figures)
+            ``test`` (string, the name given) and every summary figure of
+            :func:`compare`: the counts (``n_cells``, ``n_ref``, ``n_test``,
+            ``matched``, ``missed``, ``extra``, ``coincidence_factor_undefined``,
+            ``duplicates_ref``, ``duplicates_test``) as int64, ``diverged`` as
+            bool, every other figure as float64 (NaN where undefined); with
+            costs also ``cost`` (float64) and ``on_front`` (bool). Rows in the
+            order the tests were given.
+        """
+        return _typed(self.table.reset_index(names="test"), ints=_INT_FIGURES, bools=("diverged", "on_front"),
+                      strings=("test",))
 
     def to_dict(self) -> dict:
         """Every comparison's :meth:`Comparison.to_dict` by name, plus costs and the front."""

@@ -18,13 +18,22 @@ def agreement_over_time(reference: Raster, test: Raster, matching: Matching, *,
     """Matched spikes, jitter and chance-corrected agreement in sliding windows.
 
     Windows of ``window_ms`` advance by half a window from ``t_start_ms``; a
-    spike belongs to the windows containing it, and a pair to the windows
-    containing its reference spike.
+    spike belongs to the windows containing it, matched or not. The two
+    spikes of a matched pair can lie in neighbouring windows (a pair is up to
+    a match window apart), so each spike is counted where it lies:
+    ``matched`` counts the window's matched reference spikes and
+    ``matched_test`` its matched test spikes, so ``matched + missed = n_ref``
+    and ``matched_test + extra = n_test`` in every window.
 
     Agreement is the fraction of spikes of both rasters that are matched,
-    ``f = 2 matched / (n_ref + n_test)``: the fraction of reference spikes
-    matched when the counts agree, and lowered by extra spikes too (the
-    reference fraction alone would not see a test raster that adds spikes).
+    ``f = (matched reference spikes + matched test spikes) / (n_ref + n_test)``
+    over the spikes in the window: the fraction of reference spikes matched
+    when the counts agree, and lowered by extra spikes too (the reference
+    fraction alone would not see a test raster that adds spikes). Each term of
+    the numerator is at most its term of the denominator, so ``f <= 1``.
+    (Counting both spikes of a pair in the reference spike's window, as
+    ``2 matched``, would give ``f > 1`` in a window whose matched reference
+    spikes have their partners just before the window starts.)
     Chance correction: a reference spike of cell c has a test spike within
     the match window w by chance with probability ``p_c = 1 - exp(-2 w nu_c)``
     if the test train were Poisson with the cell's test rate nu_c over the
@@ -42,7 +51,7 @@ def agreement_over_time(reference: Raster, test: Raster, matching: Matching, *,
     -------
     DataFrame
         One row per window: ``start_ms``, ``stop_ms``, ``n_ref``, ``n_test``,
-        ``matched``, ``missed``, ``extra``, ``agreement``, ``chance``,
+        ``matched``, ``matched_test``, ``missed``, ``extra``, ``agreement``, ``chance``,
         ``corrected``, ``shift_mean_ms``, ``shift_rms_ms``.
     """
     t0 = reference.t_start_ms
@@ -62,19 +71,21 @@ def agreement_over_time(reference: Raster, test: Raster, matching: Matching, *,
     rb = half_bin(reference.time_ms)
     sb = half_bin(test.time_ms)
     matched = matching.ref_partner >= 0
+    matched_test = matching.test_partner >= 0
     shift = test.time_ms[matching.ref_partner[matched]] - reference.time_ms[matched]
     nu = test.counts() / duration
     p = -np.expm1(-2.0 * matching.window_ms * nu)[reference.cell]
     n_ref = per_window(per_half(rb))
     n_test = per_window(per_half(sb))
     n_match = per_window(per_half(rb[matched]))
+    n_match_test = per_window(per_half(sb[matched_test]))
     sum_shift = per_window(per_half(rb[matched], shift))
     sum_sq = per_window(per_half(rb[matched], shift * shift))
     expected = per_window(per_half(rb, p))
     start = t0 + stride * np.arange(n_ref.size)
     with np.errstate(divide="ignore", invalid="ignore"):
         both = n_ref + n_test
-        agreement = 2.0 * n_match / both
+        agreement = (n_match + n_match_test) / both
         chance = 2.0 * expected / both
         corrected = np.where(chance < 1.0, (agreement - chance) / (1.0 - chance), np.nan)
         mean = sum_shift / n_match
@@ -82,8 +93,9 @@ def agreement_over_time(reference: Raster, test: Raster, matching: Matching, *,
     return pd.DataFrame({
         "start_ms": start, "stop_ms": np.minimum(start + window_ms, reference.t_stop_ms),
         "n_ref": n_ref.astype(np.int64), "n_test": n_test.astype(np.int64),
-        "matched": n_match.astype(np.int64), "missed": (n_ref - n_match).astype(np.int64),
-        "extra": (n_test - n_match).astype(np.int64), "agreement": agreement, "chance": chance,
+        "matched": n_match.astype(np.int64), "matched_test": n_match_test.astype(np.int64),
+        "missed": (n_ref - n_match).astype(np.int64),
+        "extra": (n_test - n_match_test).astype(np.int64), "agreement": agreement, "chance": chance,
         "corrected": corrected, "shift_mean_ms": mean, "shift_rms_ms": rms})
 
 

@@ -21,8 +21,8 @@ def advise(profile_dir, target_jitter_ms, target_mismatch_frac, duration_s, cell
     p = a["predicted"]
     click.echo(f"Run: {a['label']}")
     click.echo(f"  sweep accuracy: RMS jitter {a['sweep_accuracy']['shift_rms_ms']:.3g} ms, "
-               f"mismatch {a['sweep_accuracy']['mismatch_fraction']:.3%}")
+               f"(missed + extra) per reference spike {a['sweep_accuracy']['mismatch_fraction']:.3%}")
     click.echo(f"  predicted for {p['n_cells']} cells over {a['run']['duration_s']:g} s: "
-               f"{p['steps']:.4g} cell-steps, {p['arrivals']:.4g} arrivals, "
+               f"{p['steps']:.4g} cell-steps, {p['arrivals']:.4g} synaptic events, "
                f"wall {p['wall_s']:.4g} s, memory {p['memory_bytes'] / 1e9:.3g} GB")
     click.echo(f"  written to {profile_dir}/advice.json")

@@ -11,7 +11,7 @@ from ..errors import InputError
 from .main import cli
 
 _TABLE = (("matched", "matched", "{:d}"), ("missed", "missed", "{:d}"), ("extra", "extra", "{:d}"),
-          ("mismatch", "mismatch_fraction", "{:.2%}"), ("bias ms", "shift_mean_ms", "{:.3g}"),
+          ("(missed+extra)/ref", "mismatch_fraction", "{:.2%}"), ("bias ms", "shift_mean_ms", "{:.3g}"),
           ("rms ms", "shift_rms_ms", "{:.3g}"), ("p99 ms", "shift_p99_abs_ms", "{:.3g}"),
           ("first err ms", "first_error_ms", "{:.4g}"), ("horizon ms", "horizon_ms", "{:.4g}"),
           ("vR", "van_rossum_mean", "{:.3g}"), ("Γ", "coincidence_factor_mean", "{:.3f}"))
@@ -121,11 +121,14 @@ def compare(reference, tests, match_window_ms, tau_ms, cost_per_ms, coincidence_
         .to_csv(out / "per_cell.csv", index=False)
     pd.concat([c.pairs.assign(test=n) for n, c in result.comparisons.items()]) \
         .to_csv(out / "pairs.csv", index=False)
+    shown = []
     if not no_figures:
-        from ..report.raster_plots import write_figures, write_front
+        from ..report.raster_plots import raster_difference_view, write_figures, write_front
         several = len(result.comparisons) > 1
         for n, c in result.comparisons.items():
-            write_figures(c, out / "figures", prefix=f"{n}_" if several else "")
+            prefix = f"{n}_" if several else ""
+            write_figures(c, out / "figures", prefix=prefix)
+            shown.append(f"figures/{prefix}raster_difference.png shows {raster_difference_view(c).description}")
         if result.front is not None:
             write_front(result, out / "figures")
 
@@ -142,7 +145,21 @@ def compare(reference, tests, match_window_ms, tau_ms, cost_per_ms, coincidence_
     widths = [max(len(str(x)) for x in col) for col in zip(columns, *rows)]
     for row in (columns, *rows):
         click.echo("  ".join(str(x).rjust(w) for x, w in zip(row, widths)))
+    click.echo(_legend(first.settings))
+    for line in shown:
+        click.echo(line)
     click.echo(f"written to {out}")
+
+
+def _legend(settings: dict) -> str:
+    """What the table's columns mean, under the table."""
+    return "\n".join([
+        "(missed+extra)/ref: missed plus extra spikes per reference spike",
+        "bias, rms, p99 ms: signed mean, RMS and 99th percentile of |shift| of matched spikes (test - reference)",
+        "first err ms: time to the first missed or extra spike; horizon ms: time until agreement is lost",
+        f"vR: van Rossum distance (tau {settings['tau_ms']:g} ms), mean over cells (0 = identical)",
+        f"Γ: coincidence factor (window {settings['coincidence_window_ms']:g} ms), mean over cells "
+        "(1 = identical, 0 = chance level)"])
 
 
 def _fmt(fmt: str, value) -> str:

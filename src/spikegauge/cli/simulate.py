@@ -16,18 +16,22 @@ from .main import cli, progress_bar
 @click.option("--dt-ms", type=float, help="Time step of the fixed strategy (ms).")
 @click.option("--crossing", type=click.Choice(["step", "linear", "hermite", "dense"]),
               help="Threshold-crossing location.")
-@click.option("--delivery", type=click.Choice(["grid", "exact"]), help="Arrival delivery of the fixed strategy.")
+@click.option("--delivery", type=click.Choice(["grid", "exact"]),
+              help="When the fixed strategy applies a synaptic event: at the next step (grid) or exactly.")
 @click.option("--rtol", type=float, help="Relative tolerance (adaptive strategies).")
 @click.option("--atol", type=float, help="Absolute tolerance in units of each state's scale (adaptive).")
 @click.option("--auto-scale", is_flag=True, help="Measure state scales with a short pilot run (adaptive).")
+@click.option("--t-stop-ms", type=float,
+              help="Stop the run at this time (ms), earlier than the scenario's duration_ms "
+                   "(default: the whole duration). Drive and network are the same as for the whole run.")
 @click.option("--threads", type=int, help="Number of threads (results do not depend on it).")
 @click.option("--csv", "write_csv", is_flag=True, help="Also write spikes.csv.")
 @click.option("--max-memory-gb", type=float,
               help="Memory (GB) the run may use; overrides the machine's available memory.")
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Run folder to write.")
 @click.option("--quiet", is_flag=True, help="No progress bar.")
-def simulate(scenario, strategy, stepper, dt_ms, crossing, delivery, rtol, atol, auto_scale, threads,
-             write_csv, max_memory_gb, out_dir, quiet):
+def simulate(scenario, strategy, stepper, dt_ms, crossing, delivery, rtol, atol, auto_scale, t_stop_ms,
+             threads, write_csv, max_memory_gb, out_dir, quiet):
     """Integrate SCENARIO once and write spikes.npz and run.json to --out."""
     from ..scenario import load_scenario
     from ..simulation import resolve_settings, simulate as run_simulation
@@ -37,7 +41,8 @@ def simulate(scenario, strategy, stepper, dt_ms, crossing, delivery, rtol, atol,
                    delivery=delivery, rtol=rtol, atol=atol)
     resolve_settings(scen, **options)  # refuse bad options before any work
     started = time.perf_counter()
-    with progress_bar(int(round(scen.duration_ms * 1000)), "simulating", quiet) as bar:
+    t_stop = scen.duration_ms if t_stop_ms is None else t_stop_ms
+    with progress_bar(max(1, int(round(t_stop * 1000))), "simulating", quiet) as bar:
         done = [0]
 
         def progress(t_ms):
@@ -48,7 +53,7 @@ def simulate(scenario, strategy, stepper, dt_ms, crossing, delivery, rtol, atol,
             done[0] = now
 
         run = run_simulation(scen, auto_scale=auto_scale, threads=threads, progress=progress,
-                             **options)
+                             t_stop_ms=t_stop_ms, **options)
     out = run.save(out_dir)
     if write_csv:
         run.spikes.to_csv(out / "spikes.csv", index=False)
@@ -60,6 +65,6 @@ def simulate(scenario, strategy, stepper, dt_ms, crossing, delivery, rtol, atol,
         click.echo(run.message)
     click.echo(f"setting: {desc}")
     c = run.cost
-    click.echo(f"cost: {c['steps']} steps, {c['rhs_evals']} rhs evaluations, {c['arrivals']} arrivals, "
-               f"loop {c['wall_s']:.3f} s")
+    click.echo(f"cost: {c['steps']} cell-steps, {c['rhs_evals']} rhs evaluations, "
+               f"{c['arrivals']} synaptic events, loop {c['wall_s']:.3f} s")
     click.echo(f"written: {out}/spikes.npz, run.json")

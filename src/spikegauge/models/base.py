@@ -80,6 +80,10 @@ class ModelSpec:
         True where the relative tolerance applies (gates, conductances); False for voltage.
     lower, upper : ndarray, shape (n_states,)
         Bounds outside which the run is declared diverged.
+    doc : str
+        The model's description (its module docstring); the first line is a one-line summary.
+    source : str
+        The published source of the equations and default values (``spikegauge models NAME``).
     """
 
     name: str
@@ -96,6 +100,7 @@ class ModelSpec:
     lower: np.ndarray
     upper: np.ndarray
     doc: str = ""
+    source: str = ""
     extra: dict = field(default_factory=dict)
 
     @property

@@ -49,7 +49,7 @@ SPEC = ModelSpec(
     name="lif-conductance",
     code=CODE,
     unit_system="point",
-    state_names=("v_mv", "g_exc_ns", "g_inh_ns"),
+    state_names=("v_mv", "g_exc_nsiemens", "g_inh_nsiemens"),
     params=(
         ParamInfo("i_bias_pa", P_IEXT, 0.0, "constant external current (pA); drives add to it"),
         ParamInfo("v_th_mv", P_VTH, -50.0, "spike threshold (mV); SPEC.md bench-lif"),
@@ -65,13 +65,15 @@ SPEC = ModelSpec(
     ),
     exc_state=S_G_EXC,
     inh_state=S_G_INH,
-    weight_key="weight_ns",
+    weight_key="weight_nsiemens",
     current_key="i_pa",
     scale=_SCALE,
     has_physical_zero=np.array([False, True, True]),
     lower=np.array([V_LOWER_MV, -NEG_SCALES_ALLOWED * _SCALE[1], -NEG_SCALES_ALLOWED * _SCALE[2]]),
     upper=np.array([V_UPPER_MV, SYN_UPPER_SCALES * _SCALE[1], SYN_UPPER_SCALES * _SCALE[2]]),
     doc=__doc__,
+    source=("leaky integrate-and-fire with exponential synaptic conductances (textbook form); "
+            "defaults: the bench-lif cell"),
     extra={
         "rest_guess_slot": P_E_L,
         "positive_params": ("c_m_pf", "tau_m_ms", "tau_syn_exc_ms", "tau_syn_inh_ms"),

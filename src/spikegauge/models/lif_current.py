@@ -84,6 +84,8 @@ SPEC = ModelSpec(
     lower=np.array([V_LOWER_MV, -NEG_SCALES_ALLOWED * _SCALE[1], -NEG_SCALES_ALLOWED * _SCALE[2]]),
     upper=np.array([V_UPPER_MV, SYN_UPPER_SCALES * _SCALE[1], SYN_UPPER_SCALES * _SCALE[2]]),
     doc=__doc__,
+    source=("leaky integrate-and-fire with exponential synaptic currents (textbook form); exact propagator: "
+            "Rotter & Diesmann 1999, Biol Cybern 81:381-402; defaults: the bench-lif cell"),
     extra={
         "rest_guess_slot": P_E_L,
         "positive_params": ("c_m_pf", "tau_m_ms", "tau_syn_exc_ms", "tau_syn_inh_ms"),

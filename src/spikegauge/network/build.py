@@ -39,7 +39,7 @@ STREAM_POISSON = 5
 
 # Above this fraction of the candidate sources, drawing distinct sources by
 # rejection wastes draws; a random permutation per target is cheaper.
-_DENSE_INDEGREE_FRACTION = 0.25
+_DENSE_SOURCES_FRACTION = 0.25
 # Cap (elements) on the random-key matrix of the permutation method.
 _KEY_BLOCK_ELEMENTS = 1 << 22
 
@@ -208,7 +208,7 @@ def _synapses(scenario: Scenario, first: np.ndarray) -> dict:
         n_tgt = scenario.groups[pw.target_index].size
         src, tgt = connect(pw, n_src, n_tgt, stream(seed, STREAM_CONNECT, pi))
         n = src.size
-        if pw.rule == "file":
+        if pw.connect == "edge-list":
             delay = pw.edges.delay_ms.copy()
         else:
             delay = pw.delay_ms.sample(stream(seed, STREAM_SYNAPSE, pi, 0), n)
@@ -242,18 +242,18 @@ def connect(pw: Pathway, n_src: int, n_tgt: int, rng: np.random.Generator) -> tu
     Returns
     -------
     src, tgt : ndarray of int64, shape (n,)
-        Ordered by target, then source (file rule: file order).
+        Ordered by target, then source (edge-list: file order).
     """
     exclude_self = pw.source_index == pw.target_index and not pw.self_connections
-    if pw.rule == "fixed-indegree":
-        return fixed_indegree(rng, n_src, n_tgt, pw.indegree, exclude_self)
-    if pw.rule == "fixed-probability":
-        return fixed_probability(rng, n_src, n_tgt, pw.probability, exclude_self)
-    if pw.rule == "one-to-one":
+    if pw.connect == "sources-per-target":
+        return draw_sources_per_target(rng, n_src, n_tgt, pw.sources_per_target, exclude_self)
+    if pw.connect == "random":
+        return draw_random_pairs(rng, n_src, n_tgt, pw.p_connect, exclude_self)
+    if pw.connect == "one-to-one":
         idx = np.arange(n_tgt, dtype=np.int64)
         return idx, idx.copy()
-    if pw.rule == "all-to-all":
-        return fixed_probability(rng, n_src, n_tgt, 1.0, exclude_self)
+    if pw.connect == "all-to-all":
+        return draw_random_pairs(rng, n_src, n_tgt, 1.0, exclude_self)
     return pw.edges.source.copy(), pw.edges.target.copy()
 
 
@@ -262,8 +262,8 @@ def _skip_self(src_local: np.ndarray, tgt: np.ndarray) -> np.ndarray:
     return src_local + (src_local >= tgt)
 
 
-def fixed_indegree(rng: np.random.Generator, n_src: int, n_tgt: int, k: int,
-                   exclude_self: bool) -> tuple[np.ndarray, np.ndarray]:
+def draw_sources_per_target(rng: np.random.Generator, n_src: int, n_tgt: int, k: int,
+                            exclude_self: bool) -> tuple[np.ndarray, np.ndarray]:
     """Each target gets ``k`` distinct sources drawn uniformly (without the target itself if asked).
 
     For small ``k`` relative to the candidates, draws are made with
@@ -276,7 +276,7 @@ def fixed_indegree(rng: np.random.Generator, n_src: int, n_tgt: int, k: int,
     tgt = np.repeat(np.arange(n_tgt, dtype=np.int64), k)
     if k == 0 or n_tgt == 0:
         return np.empty(0, np.int64), tgt
-    if k <= _DENSE_INDEGREE_FRACTION * m:
+    if k <= _DENSE_SOURCES_FRACTION * m:
         idx = rng.integers(0, m, size=(n_tgt, k))
         while True:
             idx.sort(axis=1)
@@ -297,7 +297,7 @@ def fixed_indegree(rng: np.random.Generator, n_src: int, n_tgt: int, k: int,
     return (_skip_self(src, tgt) if exclude_self else src), tgt
 
 
-def fixed_probability(rng: np.random.Generator, n_src: int, n_tgt: int, p: float,
+def draw_random_pairs(rng: np.random.Generator, n_src: int, n_tgt: int, p: float,
                       exclude_self: bool) -> tuple[np.ndarray, np.ndarray]:
     """Each (source, target) pair connects independently with probability ``p``.
 

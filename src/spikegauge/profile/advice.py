@@ -5,8 +5,8 @@ carries over to another machine; wall time is then counts times the measured
 seconds per cell-step and per arrival.
 
 Counts for a run of ``N`` cells over ``T`` ms (per-cell firing rate and drive
-taken from the sweep; synapses per cell from the scenario's connection rules
-at the new size, so fixed-probability pathways grow with the network):
+taken from the sweep; synapses per cell from the scenario's pathways at the
+new size, so ``random`` pathways grow with the network):
 
 * arrivals ``A = N T (d + nu K)``: drive events per cell and ms ``d``,
   firing rate ``nu`` (per ms) times synapses per cell ``K``;
@@ -51,8 +51,8 @@ BYTES_PER_ARRIVAL = 56  # seven 8-byte fields per queued arrival (engine.Arrival
 def scaled_scenario(scenario, n_cells: int | None = None, duration_ms: float | None = None):
     """The scenario with every group resized by the same factor and a new duration.
 
-    Connection rules keep their parameters (a fixed in-degree stays fixed, a
-    connection probability too), drives their per-cell rates.
+    Pathways keep their parameters (``sources_per_target`` stays fixed,
+    ``p_connect`` too), drives their per-cell rates.
     """
     groups = scenario.groups
     if n_cells is not None:

@@ -10,6 +10,7 @@ the caller's backend or keeps figures alive in a global registry.
 """
 from __future__ import annotations
 
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -32,6 +33,56 @@ def _new_figure(ax, size=(7.0, 4.0)):
     return fig, fig.add_subplot()
 
 
+@dataclass(frozen=True)
+class RasterView:
+    """The part of a comparison the raster-difference figure shows.
+
+    Attributes
+    ----------
+    cells : ndarray of int64, shape (n_shown,)
+        Cell ids, one row each, bottom to top.
+    t_start_ms, t_stop_ms : float
+        Time window shown (ms).
+    description : str
+        Which subset this is, in words (the figure's title says it, and
+        ``spikegauge compare`` prints it).
+    """
+
+    cells: np.ndarray
+    t_start_ms: float
+    t_stop_ms: float
+    description: str
+
+
+def raster_difference_view(comparison, *, t_start_ms: float | None = None, t_stop_ms: float | None = None,
+                           cells=None, max_cells: int = 50, max_window_ms: float = 500.0) -> RasterView:
+    """Which cells and time window :func:`plot_raster_difference` shows, and a sentence saying so.
+
+    Defaults: the first ``max_window_ms`` of the compared interval and the
+    first ``max_cells`` cells that fire in either raster (a figure of more
+    rows or a longer window no longer shows single spikes).
+    """
+    ref, test = comparison.reference, comparison.test
+    t0 = ref.t_start_ms if t_start_ms is None else float(t_start_ms)
+    t1 = min(ref.t_stop_ms, t0 + max_window_ms) if t_stop_ms is None else float(t_stop_ms)
+    if cells is None:
+        active = np.flatnonzero((ref.counts() + test.counts()) > 0)
+        cells = active[:max_cells]
+        if cells.size == active.size:
+            which = f"all {active.size} firing cells of {ref.n_cells}"
+        else:
+            which = f"the first {cells.size} of {active.size} firing cells (ids {cells[0]}-{cells[-1]})"
+    else:
+        cells = np.asarray(cells, dtype=np.int64)
+        which = f"{cells.size} chosen cells of {ref.n_cells}"
+    if t0 <= ref.t_start_ms and t1 >= ref.t_stop_ms:
+        when = f"{ref.t_start_ms:g}-{ref.t_stop_ms:g} ms (the whole interval)"
+    else:
+        when = f"{t0:g}-{t1:g} ms of {ref.t_start_ms:g}-{ref.t_stop_ms:g} ms"
+    return RasterView(cells=np.asarray(cells, dtype=np.int64), t_start_ms=t0, t_stop_ms=t1,
+                      description=f"{which}, {when}")
+
+
 def plot_raster_difference(comparison, *, t_start_ms: float | None = None,
                            t_stop_ms: float | None = None, cells=None, max_cells: int = 50,
                            ax=None) -> Figure:
@@ -40,7 +91,8 @@ def plot_raster_difference(comparison, *, t_start_ms: float | None = None,
     Matched reference spikes are grey ticks; each matched test spike is a dot
     on the same row coloured by its signed shift (test - reference) on a
     diverging scale, so drift shows as a colour trend. Missed reference spikes
-    are vermillion crosses, extra test spikes blue triangles.
+    are vermillion crosses, extra test spikes blue triangles. The title says
+    which cells and which window are shown (:func:`raster_difference_view`).
 
     Parameters
     ----------
@@ -54,12 +106,9 @@ def plot_raster_difference(comparison, *, t_start_ms: float | None = None,
     ax : matplotlib Axes, optional
     """
     ref, test, m = comparison.reference, comparison.test, comparison.matching
-    t0 = ref.t_start_ms if t_start_ms is None else t_start_ms
-    t1 = min(ref.t_stop_ms, t0 + 500.0) if t_stop_ms is None else t_stop_ms
-    if cells is None:
-        active = np.flatnonzero((ref.counts() + test.counts()) > 0)
-        cells = active[:max_cells]
-    cells = np.asarray(cells, dtype=np.int64)
+    view = raster_difference_view(comparison, t_start_ms=t_start_ms, t_stop_ms=t_stop_ms, cells=cells,
+                                  max_cells=max_cells)
+    cells, t0, t1 = view.cells, view.t_start_ms, view.t_stop_ms
     row = np.full(ref.n_cells, -1)
     row[cells] = np.arange(cells.size)
     fig, ax = _new_figure(ax, (8.0, max(3.0, 0.12 * cells.size + 1.5)))
@@ -91,7 +140,7 @@ def plot_raster_difference(comparison, *, t_start_ms: float | None = None,
     ax.set_yticks(np.arange(0, cells.size, step), [str(c) for c in cells[::step]])
     ax.set_xlabel("time (ms)")
     ax.set_ylabel("cell")
-    ax.set_title("Raster difference")
+    ax.set_title(f"Raster difference: {view.description}", fontsize="medium")
     ax.legend(loc="upper left", bbox_to_anchor=(0.0, -0.14), ncol=4, fontsize="small", frameon=False)
     return fig
 
@@ -144,9 +193,12 @@ def plot_error_over_time(comparison, *, ax=None) -> Figure:
     mid = 0.5 * (ot["start_ms"] + ot["stop_ms"])
     ax.plot(mid, ot["corrected"], color=OKABE_ITO["blue"], marker="o", markersize=2.5,
             label="agreement (chance-corrected)")
-    ax.axhline(comparison.settings.get("min_agreement", 0.5), color=OKABE_ITO["blue"],
-               linestyle=":", linewidth=0.8)
-    ax.set_ylim(-0.1, 1.05)
+    threshold = comparison.settings.get("min_agreement", 0.5)
+    ax.axhline(threshold, color=OKABE_ITO["blue"], linestyle=":", linewidth=0.8,
+               label=f"agreement lost below {threshold:g}")
+    # Unrelated rasters score a little below 0 (see agreement_over_time): keep them in view.
+    low = np.nanmin(ot["corrected"].to_numpy(), initial=0.0)
+    ax.set_ylim(min(-0.1, low - 0.05), 1.05)
     ax.set_xlabel("time (ms)")
     ax.set_ylabel("agreement", color=OKABE_ITO["blue"])
     ax2 = ax.twinx()
@@ -160,7 +212,8 @@ def plot_error_over_time(comparison, *, ax=None) -> Figure:
     ax.axvline(horizon, color=OKABE_ITO["vermillion"], linewidth=1.5, label=label)
     lines = ax.get_legend_handles_labels()
     lines2 = ax2.get_legend_handles_labels()
-    ax.legend(lines[0] + lines2[0], lines[1] + lines2[1], loc="lower left", fontsize="small")
+    ax.legend(lines[0] + lines2[0], lines[1] + lines2[1], loc="upper left", bbox_to_anchor=(0.0, -0.14),
+              ncol=2, fontsize="small", frameon=False)
     ax.set_title("Agreement over time", fontsize="medium")
     return fig
 
