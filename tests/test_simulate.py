@@ -178,3 +178,26 @@ def test_simulate_command_t_stop_ms_help_and_refusal(tmp_path):
     assert res.exit_code == 2
     assert res.output.count("\n") == 1 and "--t-stop-ms" in res.output and "1000" in res.output
     assert not (tmp_path / "x").exists()
+
+
+@pytest.mark.parametrize("settings", [
+    dict(strategy="fixed", stepper="rk4", dt_ms=0.025, crossing="hermite", delivery="grid"),
+    dict(strategy="fixed", stepper="rk2", dt_ms=0.05, crossing="linear", delivery="exact"),
+    dict(strategy="local-adaptive", stepper="bs32", rtol=1e-3),
+    dict(strategy="global-adaptive", stepper="dp54", rtol=1e-3),
+])
+def test_work_limit_stops_the_run_at_a_window_end(settings):
+    """A run stopped by its work limit is the same run cut short: the spikes up to the stop,
+    the work just past the limit (it is checked at window ends), status "stopped"."""
+    net = spikegauge.build_network(spikegauge.load_scenario("scenarios/demo-profile.toml"))
+    full = spikegauge.simulate(net, threads=1, t_stop_ms=60.0, **settings)
+    work = full.cost["rhs_evals"] + full.cost["newton_iters"]
+    cut = spikegauge.simulate(net, threads=1, t_stop_ms=60.0, work_limit=work / 3, **settings)
+    assert full.status == "ok" and cut.status == "stopped" and "passed the limit" in cut.message
+    assert 0 < cut.t_stop_ms < 60.0
+    assert cut.cost["rhs_evals"] + cut.cost["newton_iters"] > work / 3
+    before = full.spikes[full.spikes["time_ms"] <= cut.t_stop_ms]
+    assert np.array_equal(before.to_numpy(), cut.spikes.to_numpy())
+    # a limit the run never reaches changes nothing
+    again = spikegauge.simulate(net, threads=1, t_stop_ms=60.0, work_limit=2 * work, **settings)
+    assert again.status == "ok" and again.spikes.equals(full.spikes)

@@ -122,7 +122,7 @@ def make_kernel(network, settings: dict, auto_scale=False, record_steps=None):
 def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, delivery=None,
              rtol=None, atol=None, auto_scale=False, threads=None, t_stop_ms=None,
              record_cells=None, record_interval_ms=None, record_steps=None,
-             progress=None) -> Run:
+             progress=None, work_limit=None) -> Run:
     """Integrate a scenario's network with one setting.
 
     Parameters
@@ -148,6 +148,9 @@ def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, d
         Adaptive strategies: keep (time, step size, accepted) for these cells.
     progress : callable(t_ms) or None
         Called as the run advances.
+    work_limit : float, optional
+        Stop once the work (rhs evaluations plus Newton iterations) exceeds this,
+        at the end of a window; the run's status is then ``"stopped"``.
 
     Returns
     -------
@@ -185,7 +188,7 @@ def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, d
                 run = partial(run, network)
             result = run(t_stop, state=state, progress=progress,
                          extra_edges=None if recorder is None else recorder.times(t_stop),
-                         on_window=None if recorder is None else recorder)
+                         on_window=None if recorder is None else recorder, work_limit=work_limit)
             n_threads = numba.get_num_threads()
         finally:
             numba.set_num_threads(threads_before)

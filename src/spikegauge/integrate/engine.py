@@ -439,6 +439,18 @@ def divergence(state: CellState, times: np.ndarray) -> tuple[np.ndarray, float, 
     return times <= t_div, t_div, message
 
 
+def past_work_limit(counters: np.ndarray, work_limit) -> bool:
+    """Whether the work so far (rhs evaluations plus Newton iterations) exceeds ``work_limit``."""
+    if work_limit is None:
+        return False
+    return int(counters[:, C_RHS].sum()) + int(counters[:, C_NEWTON].sum()) > work_limit
+
+
+def work_limit_message(t_ms: float, work_limit: float) -> str:
+    return (f"stopped at t = {t_ms:.6g} ms: the work passed the limit of {work_limit:.4g} "
+            f"(rhs evaluations + Newton iterations)")
+
+
 def default_boundaries(d_min_ms: float, t_stop_ms: float) -> np.ndarray:
     """Window edges of length ``min(d_min, MAX_WINDOW_MS)``, ending exactly at ``t_stop_ms``."""
     w = min(d_min_ms, MAX_WINDOW_MS, t_stop_ms)
@@ -450,7 +462,7 @@ def default_boundaries(d_min_ms: float, t_stop_ms: float) -> np.ndarray:
 
 def run_windows(network, kernel, t_stop_ms: float, state: CellState | None = None,
                 progress=None, spike_capacity: int = 8, on_window=None,
-                extra_edges=None) -> WindowLoopResult:
+                extra_edges=None, work_limit=None) -> WindowLoopResult:
     """Integrate ``network`` from 0 to ``t_stop_ms`` with a strategy's window kernel.
 
     Parameters
@@ -468,12 +480,15 @@ def run_windows(network, kernel, t_stop_ms: float, state: CellState | None = Non
         Called after each window (used for trace recording).
     extra_edges : ndarray or None
         Further window edges (sampling times); windows only get shorter.
+    work_limit : float or None
+        Stop at the end of the first window after which the work (right-hand-side
+        evaluations plus Newton iterations) exceeds this; status ``"stopped"``.
 
     Returns
     -------
     WindowLoopResult
         Spikes in window order, cell order within a window; summed counters;
-        status ``"ok"`` or ``"diverged"``.
+        status ``"ok"``, ``"diverged"`` or ``"stopped"``.
     """
     import time as _time
 
@@ -532,6 +547,10 @@ def run_windows(network, kernel, t_stop_ms: float, state: CellState | None = Non
             on_window(t0, t1, state)
         if progress is not None:
             progress(t1)
+        if past_work_limit(counters, work_limit) and t1 < edges[-1]:
+            status, t_reached = "stopped", t1
+            message = work_limit_message(t1, work_limit)
+            break
     cell = np.concatenate(out_cells) if out_cells else np.empty(0, dtype=np.int64)
     time = np.concatenate(out_times) if out_times else np.empty(0)
     totals = counters.sum(axis=0)

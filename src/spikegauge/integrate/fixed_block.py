@@ -576,7 +576,7 @@ SEGMENTS = 50
 
 
 def run_grid(kernel, network, t_stop_ms, state, progress=None, on_window=None, extra_edges=None,
-             tile=TILE):
+             tile=TILE, work_limit=None):
     """Integrate with the fixed step and grid delivery; returns a WindowLoopResult.
 
     ``kernel`` is the :class:`~spikegauge.integrate.fixed.FixedStepKernel` of the
@@ -584,12 +584,13 @@ def run_grid(kernel, network, t_stop_ms, state, progress=None, on_window=None, e
     :func:`spikegauge.integrate.engine.run_windows` (``on_window`` is called at
     the end of every piece, and pieces end at every extra edge). ``tile``: cells
     per block (tests use small blocks to spread small networks over threads).
+    ``work_limit``: as in ``run_windows``, checked at the end of every piece.
     """
     import time as _time
 
     from ..errors import ComputationError
     from ..network.drive import DriveStream
-    from .engine import COUNTER_NAMES, WindowLoopResult
+    from .engine import COUNTER_NAMES, WindowLoopResult, past_work_limit, work_limit_message
 
     run = GridRun(network, state, kernel.dt, kernel.stepper, kernel.crossing, t_stop_ms, tile)
     n_total = run.n_total
@@ -626,6 +627,9 @@ def run_grid(kernel, network, t_stop_ms, state, progress=None, on_window=None, e
             on_window(t0, t1, state)
         if progress is not None:
             progress(t1)
+        if past_work_limit(run.counters, work_limit) and n1 < n_total:
+            status, t_reached, message = "stopped", t1, work_limit_message(t1, work_limit)
+            break
     run.write_back()
     totals = run.counters.sum(axis=0)
     return WindowLoopResult(
