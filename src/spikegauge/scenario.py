@@ -30,6 +30,8 @@ import pandas as pd
 
 from .distributions import ValueSpec, check_sign, finite_number, parse_value_spec, type_name
 from .errors import InputError
+from .formats.sonata_edges import PATHWAY_KEYS as SONATA_PATHWAY_KEYS
+from .formats.sonata_edges import is_hdf5, pathway_edge_columns, refuse_sonata_keys
 from .models import MODELS, max_params, max_states
 from .models.base import RECEPTOR_EXC, RECEPTOR_INH, ModelSpec
 
@@ -496,6 +498,7 @@ class _Parser:
         wkey = spec.weight_key
         allowed = ("source", "target", "rule", "indegree", "probability", "file", "self_connections",
                    "receptor", wkey, "delay_ms")
+        allowed += SONATA_PATHWAY_KEYS  # node-id offsets etc. of an edge list given as a SONATA edges file
         self.keys(w, t, allowed, ("rule", "receptor"),
                   hint_for=lambda k: _weight_key_hint(k, spec, tgt.name))
         rule = self.string(f"{w}.rule", t["rule"], RULES)
@@ -536,7 +539,7 @@ class _Parser:
         if rule == "file":
             if "delay_ms" in t:
                 raise self.err(f"{w}.delay_ms", "delays of a file pathway come from the file's delay_ms column")
-            edges = self.edge_file(f"{w}.file", t["file"], src, tgt, same)
+            edges = self.edge_file(f"{w}.file", t["file"], src, tgt, same, t)
             if edges.weight is not None and wkey in t:
                 raise self.err(f"{w}.{wkey}", "the file has a weight column; give weights in one place only")
             if edges.weight is None and wkey not in t:
@@ -553,9 +556,14 @@ class _Parser:
                        receptor=receptor, self_connections=self_conn, weight=weight, delay_ms=delay,
                        indegree=indegree, probability=probability, edges=edges)
 
-    def edge_file(self, where: str, raw, src: Group, tgt: Group, same: bool) -> EdgeList:
+    def edge_file(self, where: str, raw, src: Group, tgt: Group, same: bool, table: dict) -> EdgeList:
         path = (self.base_dir / self.string(where, raw)).resolve()
-        cols = _read_table(path, f"{self.label}: {where}", ("source", "target", "delay_ms"), ("weight",))
+        pathway = f"{self.label}: {where.rpartition('.')[0]}"
+        if is_hdf5(path):  # a SONATA edges file, told by its content (formats/sonata_edges.py)
+            cols = pathway_edge_columns(path, pathway, table, src, tgt, same, self.base_dir)
+        else:
+            refuse_sonata_keys(pathway, table, path)
+            cols = _read_table(path, f"{self.label}: {where}", ("source", "target", "delay_ms"), ("weight",))
         name = path.name
         source = self._index_column(where, name, cols["source"], "source", src)
         target = self._index_column(where, name, cols["target"], "target", tgt)
