@@ -101,8 +101,12 @@ def _table(path: Path, ends: np.ndarray, flat: np.ndarray, labels, id_column) ->
     if not ends.size and flat.size:
         raise InputError(f"{path}: /units/spike_times_index: empty, but spike_times has {flat.size} entries")
     counts = np.diff(np.concatenate([[0], ends]))
+
+    def place(i: int) -> str:
+        return f"{name}[{i}] (unit {int(np.searchsorted(ends, i, side='right'))})"
+
     time_ms = flat.astype(np.float64) * 1000.0
-    check_times(time_ms, path, lambda i: f"{name}[{i}]")
+    check_times(time_ms, path, place)
     n_cells = None
     if labels is None:
         ids = np.arange(ends.size, dtype=np.int64)
@@ -119,8 +123,4 @@ def _table(path: Path, ends: np.ndarray, flat: np.ndarray, labels, id_column) ->
             raise InputError(f"{path}: {col}: units {rows[0]} and {rows[1]} both have id {dup}; "
                              "one unit must be one cell")
     cell = np.repeat(ids, counts)
-
-    def place(i: int) -> str:
-        return f"{name}[{i}] (unit {int(np.searchsorted(ends, i, side='right'))})"
-
     return SpikeTable(cell=cell, time_ms=time_ms, source=str(path), place=place, n_cells=n_cells)
