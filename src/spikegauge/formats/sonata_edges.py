@@ -245,7 +245,12 @@ def pathway_edge_columns(path: Path, where: str, table: dict, source, target, sa
         if not isinstance(types, str):
             raise InputError(f"{where}.edge_types: must be a file name, got {types!r}")
         types = (base_dir / types).resolve()
-    edges = read_sonata_edges(path, population, types)
+    try:
+        edges = read_sonata_edges(path, population, types)
+    except InputError as exc:  # the scenario's place first, then the file's (by name) and dataset
+        msg = str(exc)
+        msg = path.name + msg[len(str(path)):] if msg.startswith(str(path)) else msg
+        raise InputError(f"{where}: {msg}") from None
     root = f"/edges/{edges.population}"
     s0, t0 = offsets["source_node_offset"], offsets["target_node_offset"]
     keep = (edges.source_node >= s0) & (edges.source_node < s0 + source.size) \
