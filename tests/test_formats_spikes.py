@@ -255,3 +255,24 @@ def test_cli_bad_sonata_exits_2_with_one_line(good_sonata, tmp_path, files):
     assert result.exit_code == 2
     lines = [ln for ln in result.output.splitlines() if ln.startswith("error:")]
     assert len(lines) == 1 and "spikes.h5: /spikes/v1/timestamps attribute 'units'" in lines[0]
+
+
+def test_neo_trains_refuse_non_time_units_and_negative_times():
+    import neo
+    import quantities as pq
+
+    good = neo.SpikeTrain([1.0, 2.0] * pq.ms, t_stop=10 * pq.ms)
+    early = neo.SpikeTrain([-1.0, 2.0] * pq.ms, t_start=-5 * pq.ms, t_stop=10 * pq.ms)
+    with pytest.raises(InputError, match=r"<neo.SpikeTrain list>: item 1 spike 0: spike time -1.0 ms is negative"):
+        as_raster([good, early])
+    with pytest.raises(InputError, match=r"cannot read spikes from a list"):
+        as_raster([good, np.array([1.0])])
+
+
+def test_hdf5_file_of_neither_format(tmp_path):
+    path = tmp_path / "other.h5"
+    with h5py.File(path, "w") as f:
+        f["data"] = np.arange(3.0)
+    with pytest.raises(InputError, match=r"other.h5: /spikes: group missing \(an HDF5 file that is neither a "
+                                         r"SONATA spike file nor an NWB file\)"):
+        as_raster(path, t_stop_ms=T_STOP_MS)

@@ -55,7 +55,7 @@ def reading(path, name: str):
         yield
     except InputError:
         raise
-    except (OSError, KeyError, RuntimeError, ValueError, TypeError, IndexError) as exc:
+    except (OSError, KeyError, RuntimeError, ValueError, TypeError, IndexError, MemoryError) as exc:
         raise InputError(f"{path}: {name}: cannot read ({one_line(exc)})") from None
 
 
@@ -98,6 +98,8 @@ def dataset_1d(parent, key: str, path, name: str, kinds: str = "iuf") -> np.ndar
     """
     import h5py
 
+    from ..scenario import available_memory_bytes  # (scenario.py imports this package)
+
     with reading(path, name):
         if key not in parent:
             raise InputError(f"{path}: {name}: dataset missing")
@@ -108,6 +110,10 @@ def dataset_1d(parent, key: str, path, name: str, kinds: str = "iuf") -> np.ndar
             raise InputError(f"{path}: {name}: expected a 1-D dataset, got shape {obj.shape}")
         if obj.dtype.kind not in kinds:
             raise InputError(f"{path}: {name}: expected numbers, got dtype {obj.dtype}")
+        nbytes = obj.size * obj.dtype.itemsize
+        if nbytes > available_memory_bytes():  # a damaged header can claim any size
+            raise InputError(f"{path}: {name}: {obj.size} entries ({nbytes / 1e9:.3g} GB) do not fit in the "
+                             "memory available")
         return np.asarray(obj[()])
 
 
@@ -120,11 +126,11 @@ def text_attribute(obj, key: str, path, name: str) -> str | None:
             return None
         value = obj.attrs[key]
         enum = h5py.check_enum_dtype(obj.attrs.get_id(key).dtype)
-    if enum is not None:
-        names = {int(v): k for k, v in enum.items()}
-        value = names.get(int(np.asarray(value).ravel()[0]), value) if np.asarray(value).size == 1 else value
     if isinstance(value, np.ndarray) and value.size == 1:
         value = value.ravel()[0]
+    if enum is not None and np.ndim(value) == 0:
+        names = {int(v): k for k, v in enum.items()}
+        value = names.get(int(value), value)
     if isinstance(value, (bytes, np.bytes_)):
         try:
             value = value.decode("utf-8")

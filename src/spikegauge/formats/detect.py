@@ -5,7 +5,7 @@ from pathlib import Path
 from typing import Mapping
 
 from ..errors import InputError
-from ._hdf5 import group, is_hdf5, open_hdf5, reading
+from ._hdf5 import is_hdf5, open_hdf5, reading
 from .spike_table import SpikeTable
 
 ZIP_SIGNATURE = b"PK\x03\x04"
@@ -51,7 +51,8 @@ def read_hdf5_spikes(path, population: str | Mapping[str, int] | None = None,
             has_spikes = "spikes" in f
             nwb = is_nwb(f)
         if not has_spikes and not nwb:
-            group(f, "spikes", path, "/spikes")  # raises: names the missing group
+            raise InputError(f"{path}: /spikes: group missing (an HDF5 file that is neither a SONATA spike "
+                             "file nor an NWB file)")
     if has_spikes:
         return read_sonata_spikes(path, population)
     return read_nwb_units(path, unit_id_column)
