@@ -204,3 +204,9 @@ def test_sonata_keys_refused_for_a_csv_edge_list(tmp_path):
     with pytest.raises(InputError, match=r"pathway\[0\].source_node_offset: only used when the edge list is a "
                                          r"SONATA edges file \(HDF5\); e.csv is a table"):
         load_scenario(path)
+    # ... and with a pathway drawn by a rule, which has no edge list at all.
+    text = path.read_text().replace('rule = "file"\nfile = "e.csv"', 'rule = "all-to-all"\ndelay_ms = 1.0\nweight_pa = 1.0')
+    path.write_text(text)
+    with pytest.raises(InputError, match=r"pathway\[0\].source_node_offset: only used when the edge list is a "
+                                         r"SONATA edges file \(HDF5\); this pathway has no edge list"):
+        load_scenario(path)

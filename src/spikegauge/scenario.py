@@ -546,6 +546,7 @@ class _Parser:
                 raise self.err(w, f"missing key '{wkey}' (the file has no weight column)")
             delay = None
         else:
+            refuse_sonata_keys(f"{self.label}: {w}", t)
             if "delay_ms" not in t:
                 raise self.err(w, "missing key 'delay_ms'")
             if wkey not in t:

@@ -285,12 +285,12 @@ def pathway_edge_columns(path: Path, where: str, table: dict, source, target, sa
     return cols
 
 
-def refuse_sonata_keys(where: str, table: dict, path: Path) -> None:
-    """SONATA-only pathway keys given with a CSV/NPZ edge list are an error."""
+def refuse_sonata_keys(where: str, table: dict, path: Path | None = None) -> None:
+    """SONATA-only pathway keys with a CSV/NPZ edge list (``path``) or without an edge list are an error."""
     for key in PATHWAY_KEYS:
         if key in table:
-            raise InputError(f"{where}.{key}: only used when the edge list is a SONATA edges file (HDF5); "
-                             f"{path.name} is a table")
+            why = f"{path.name} is a table" if path is not None else "this pathway has no edge list"
+            raise InputError(f"{where}.{key}: only used when the edge list is a SONATA edges file (HDF5); {why}")
 
 
 __all__ = ["PATHWAY_KEYS", "SonataEdges", "is_hdf5", "pathway_edge_columns", "read_sonata_edges",
