@@ -102,6 +102,7 @@ def test_neo_spike_trains_compare_exactly_as_csv(files, csv_comparison, unit):
     assert got.summary["n_cells"] == N_CELLS and got.summary["t_stop_ms"] == T_STOP_MS
 
 
+@pytest.mark.filterwarnings("ignore:The file path provided")   # pynwb's advice on the .dat name we write
 def test_format_is_told_by_content_not_name(files, csv_comparison, tmp_path):
     (rc, rt), (tc, tt) = files["raw"]
     ref = write_sonata(tmp_path / "ref.csv", {"v1": (rc, rt)})          # HDF5 named .csv
@@ -276,3 +277,20 @@ def test_hdf5_file_of_neither_format(tmp_path):
     with pytest.raises(InputError, match=r"other.h5: /spikes: group missing \(an HDF5 file that is neither a "
                                          r"SONATA spike file nor an NWB file\)"):
         as_raster(path, t_stop_ms=T_STOP_MS)
+
+
+def test_cli_ids_beyond_the_run_cells_exit_2(tmp_path, files):
+    """A SONATA test raster with a node id beyond the reference run's cells: one line naming the entry."""
+    (rc, rt), _ = files["raw"]
+    run = tmp_path / "run"
+    run.mkdir()
+    np.savez(run / "spikes.npz", cell=np.asarray(rc, np.int64), time_ms=np.asarray(rt) * 1000.0, n_cells=N_CELLS,
+             t_start_ms=0.0, t_stop_ms=T_STOP_MS, group_names=np.array(["exc", "inh"]),
+             group_first=np.array([0, 9]))
+    ids = np.asarray(rc).copy()
+    ids[3] = N_CELLS + 4
+    test = write_sonata(tmp_path / "test.h5", {"v1": (ids, rt)}, sorting=None)
+    result = CliRunner().invoke(cli, ["compare", str(run), str(test), "--no-figures", "--out", str(tmp_path / "o")])
+    assert result.exit_code == 2, result.output
+    assert f"error: {test}: /spikes/v1/node_ids[3]: cell id {N_CELLS + 4} but the raster has {N_CELLS} cells" \
+        in result.output
