@@ -30,6 +30,8 @@ import pandas as pd
 
 from .distributions import ValueSpec, check_sign, finite_number, parse_value_spec, type_name
 from .errors import InputError
+from .formats.sonata_edges import PATHWAY_KEYS as SONATA_PATHWAY_KEYS
+from .formats.sonata_edges import is_hdf5, pathway_edge_columns, refuse_sonata_keys
 from .models import MODELS, max_params, max_states
 from .models.base import RECEPTOR_EXC, RECEPTOR_INH, ModelSpec
 
@@ -500,6 +502,7 @@ class _Parser:
         wkey = spec.weight_key
         allowed = ("source", "target", "connect", "sources_per_target", "p_connect", "edges",
                    "self_connections", "receptor", wkey, "delay_ms")
+        allowed += SONATA_PATHWAY_KEYS  # node-id offsets etc. of an edge list given as a SONATA edges file
         self.keys(w, t, allowed, ("connect", "receptor"),
                   hint_for=lambda k: _weight_key_hint(k, spec, tgt.name))
         connect = self.string(f"{w}.connect", t["connect"], CONNECTS)
@@ -540,13 +543,14 @@ class _Parser:
         if connect == "edge-list":
             if "delay_ms" in t:
                 raise self.err(f"{w}.delay_ms", "delays of an edge-list pathway come from the file's delay_ms column")
-            edges = self.edge_file(f"{w}.edges", t["edges"], src, tgt, same)
+            edges = self.edge_file(f"{w}.edges", t["edges"], src, tgt, same, t)
             if edges.weight is not None and wkey in t:
                 raise self.err(f"{w}.{wkey}", "the file has a weight column; give weights in one place only")
             if edges.weight is None and wkey not in t:
                 raise self.err(w, f"missing key '{wkey}' (the file has no weight column)")
             delay = None
         else:
+            refuse_sonata_keys(f"{self.label}: {w}", t)
             if "delay_ms" not in t:
                 raise self.err(w, "missing key 'delay_ms'")
             if wkey not in t:
@@ -557,9 +561,14 @@ class _Parser:
                        receptor=receptor, self_connections=self_conn, weight=weight, delay_ms=delay,
                        sources_per_target=sources_per_target, p_connect=p_connect, edges=edges)
 
-    def edge_file(self, where: str, raw, src: Group, tgt: Group, same: bool) -> EdgeList:
+    def edge_file(self, where: str, raw, src: Group, tgt: Group, same: bool, table: dict) -> EdgeList:
         path = (self.base_dir / self.string(where, raw)).resolve()
-        cols = _read_table(path, f"{self.label}: {where}", ("source", "target", "delay_ms"), ("weight",))
+        pathway = f"{self.label}: {where.rpartition('.')[0]}"
+        if is_hdf5(path):  # a SONATA edges file, told by its content (formats/sonata_edges.py)
+            cols = pathway_edge_columns(path, pathway, table, src, tgt, same, self.base_dir)
+        else:
+            refuse_sonata_keys(pathway, table, path)
+            cols = _read_table(path, f"{self.label}: {where}", ("source", "target", "delay_ms"), ("weight",))
         name = path.name
         source = self._index_column(where, name, cols["source"], "source", src)
         target = self._index_column(where, name, cols["target"], "target", tgt)

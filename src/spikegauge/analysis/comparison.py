@@ -185,14 +185,16 @@ def compare(reference, test, *, match_window_ms: float = 2.0, tau_ms: float = 5.
             jitter_limit_ms: float | None = None, bin_ms: float = 1.0, count_bin_ms: float = 50.0,
             sync_bin_ms: float = 5.0, n_sample_cells: int = 100, seed: int = 0,
             n_cells: int | None = None, t_start_ms: float | None = None,
-            t_stop_ms: float | None = None, time_unit: str = "ms") -> Comparison:
+            t_stop_ms: float | None = None, time_unit: str = "ms", population=None,
+            unit_id_column: str | None = None) -> Comparison:
     """Compare a test raster with a reference raster.
 
     Parameters
     ----------
     reference, test
         Anything :func:`spikegauge.analysis.rasters.load_rasters` reads: a
-        Raster, run folder, run object, DataFrame, NPZ or text file.
+        Raster, run folder, run object, DataFrame, NPZ or text file, SONATA
+        spike file, NWB file, or list of ``neo.SpikeTrain``.
     match_window_ms : float
         Largest |shift| of a matched pair (ms). Matching is optimal per cell:
         most pairs, then least summed |shift| (:mod:`.matching`).
@@ -212,8 +214,9 @@ def compare(reference, test, *, match_window_ms: float = 2.0, tau_ms: float = 5.
         RMS jitter above which a window counts as diverged.
     bin_ms, count_bin_ms, sync_bin_ms, n_sample_cells, seed
         Population statistics (:func:`.population.population_statistics`).
-    n_cells, t_start_ms, t_stop_ms, time_unit
-        For sources that do not carry them (:func:`.rasters.load_rasters`).
+    n_cells, t_start_ms, t_stop_ms, time_unit, population, unit_id_column
+        For sources that do not carry them, and the SONATA population and NWB
+        id column (:func:`.rasters.load_rasters`).
         ``t_start_ms`` also skips an initial transient.
 
     Returns
@@ -235,7 +238,8 @@ def compare(reference, test, *, match_window_ms: float = 2.0, tau_ms: float = 5.
         of :func:`.population.population_statistics`.
     """
     ref, tst = load_rasters([reference, test], n_cells=n_cells, t_start_ms=t_start_ms,
-                            t_stop_ms=t_stop_ms, time_unit=time_unit)
+                            t_stop_ms=t_stop_ms, time_unit=time_unit, population=population,
+                            unit_id_column=unit_id_column)
     if cost_per_ms is None:
         cost_per_ms = 2.0 / match_window_ms if match_window_ms > 0 else float("inf")
     settings = dict(match_window_ms=float(match_window_ms), tau_ms=float(tau_ms),
@@ -434,7 +438,7 @@ def compare_many(reference, tests: Mapping, costs: Mapping | None = None, *,
     if not tests:
         raise InputError("compare_many needs at least one test raster")
     names = [str(k) for k in tests]
-    load_keys = ("n_cells", "t_start_ms", "t_stop_ms", "time_unit")
+    load_keys = ("n_cells", "t_start_ms", "t_stop_ms", "time_unit", "population", "unit_id_column")
     load = {k: options.pop(k) for k in load_keys if k in options}
     rasters = load_rasters([reference, *tests.values()], **load)
     comparisons = {name: compare(rasters[0], r, **options) for name, r in zip(names, rasters[1:])}

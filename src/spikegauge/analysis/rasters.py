@@ -2,7 +2,11 @@
 
 Every comparison works on :class:`Raster`, whatever the spikes came from: a run
 folder (``spikes.npz``), an object with a ``.spikes`` table (a run), a pandas
-DataFrame, an NPZ file or a two-column text file written by any simulator.
+DataFrame, an NPZ file or a two-column text file written by any simulator, or
+a file or object of an open format of the field (SONATA spike file, NWB units
+table, list of ``neo.SpikeTrain``; readers in :mod:`spikegauge.formats`).
+Files are told apart by their content (HDF5 and ZIP signatures), not only
+their names.
 Readers validate as they go and raise :class:`~spikegauge.errors.InputError`
 naming the file and the line (text files) or entry (arrays) at fault.
 """
@@ -12,7 +16,7 @@ import re
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Sequence
+from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
@@ -218,6 +222,7 @@ class _Table:
     t_stop_ms: float | None = None
     group_names: tuple | None = None
     group_first: np.ndarray | None = None
+    place: Callable[[int], str] | None = None   # names spike i in the file (open formats)
 
     @property
     def named(self) -> bool:
@@ -431,10 +436,15 @@ def _from_frame(frame: pd.DataFrame, source: str) -> _Table:
     return table
 
 
-def _read_source(obj: Any, factor: float, name: str | None) -> _Table | Raster:
+def _read_source(obj: Any, factor: float, name: str | None, population=None,
+                 unit_id_column: str | None = None) -> _Table | Raster:
     """Dispatch on what ``obj`` is; a Raster passes through."""
+    from .. import formats
+
     if isinstance(obj, Raster):
         return obj
+    if formats.is_train_list(obj):
+        return _from_spike_table(formats.read_neo_trains(obj, name or "<neo.SpikeTrain list>"))
     if isinstance(obj, pd.DataFrame):
         return _from_frame(obj, name or "<DataFrame>")
     if hasattr(obj, "spikes") and hasattr(obj, "n_cells"):
@@ -452,11 +462,22 @@ def _read_source(obj: Any, factor: float, name: str | None) -> _Table | Raster:
             return _read_npz(path / "spikes.npz")
         if not path.exists():
             raise InputError(f"{path}: no such file or folder")
-        if path.suffix.lower() == ".npz":
+        kind = formats.spike_file_format(path)
+        if kind == "hdf5":
+            return _from_spike_table(formats.read_hdf5_spikes(path, population, unit_id_column))
+        if kind == "npz":
             return _read_npz(path)
         return _read_text(path, factor)
-    raise InputError(f"cannot read spikes from a {type(obj).__name__}: give a run folder, an NPZ or "
-                     "CSV file, a DataFrame with 'cell' and 'time_ms', or a run")
+    raise InputError(f"cannot read spikes from a {type(obj).__name__}: give a run folder, an NPZ, CSV, "
+                     "SONATA or NWB file, a DataFrame with 'cell' and 'time_ms', a run, or a list of "
+                     "neo.SpikeTrain")
+
+
+def _from_spike_table(t) -> _Table:
+    """A reader's table of an open format (:class:`spikegauge.formats.SpikeTable`) as a _Table."""
+    return _Table(labels=t.cell, time_ms=t.time_ms, source=t.source, where="spike", place=t.place,
+                  n_cells=t.n_cells, t_start_ms=t.t_start_ms, t_stop_ms=t.t_stop_ms,
+                  group_names=t.group_names, group_first=t.group_first)
 
 
 def _to_raster(table: _Table, **override) -> Raster:
@@ -467,18 +488,21 @@ def _to_raster(table: _Table, **override) -> Raster:
         return Raster.from_arrays(table.labels, table.time_ms, source=table.source,
                                   where=table.where, **kw)
     except InputError as exc:
-        if table.lines is None:
+        if table.lines is None and table.place is None:
             raise
-        # Translate a spike index into the file's line number.
-        m = re.match(rf"{re.escape(table.source)}: line (\d+): (.*)", str(exc))
+        # Translate a spike index into the file's line number or dataset entry.
+        m = re.match(rf"{re.escape(table.source)}: {re.escape(table.where)} (\d+): (.*)", str(exc))
         if not m:
             raise
-        raise InputError(f"{table.source}: line {table.lines[int(m.group(1))]}: {m.group(2)}") from None
+        i = int(m.group(1))
+        place = f"line {table.lines[i]}" if table.lines is not None else table.place(i)
+        raise InputError(f"{table.source}: {place}: {m.group(2)}") from None
 
 
 def load_rasters(sources: Sequence, *, n_cells: int | None = None, t_start_ms: float | None = None,
                  t_stop_ms: float | None = None, time_unit: str = "ms",
-                 names: Sequence[str] | None = None) -> list[Raster]:
+                 names: Sequence[str] | None = None, population: str | Mapping[str, int] | None = None,
+                 unit_id_column: str | None = None) -> list[Raster]:
     """Read several spike sources onto one common cell numbering and interval.
 
     Parameters
@@ -489,7 +513,9 @@ def load_rasters(sources: Sequence, *, n_cells: int | None = None, t_start_ms: f
         ``group_names``, ``group_first``), a text file of two columns (cell,
         time; header optional), a DataFrame with ``cell`` and ``time_ms``, or
         an object with ``.spikes``, ``.n_cells``, ``.t_start_ms``,
-        ``.t_stop_ms``, ``.group_names`` and ``.group_first`` (a run).
+        ``.t_stop_ms``, ``.group_names`` and ``.group_first`` (a run), a
+        SONATA spike file, an NWB file (its units table), or a list of
+        ``neo.SpikeTrain`` (train ``k`` is cell ``k``).
     n_cells : int, optional
         Cell count, for sources that do not carry one. Default: the largest
         count any source declares, else the largest id + 1.
@@ -502,6 +528,13 @@ def load_rasters(sources: Sequence, *, n_cells: int | None = None, t_start_ms: f
         Unit of the times in text files (NPZ files hold ``time_ms``).
     names : sequence of str, optional
         Names used in messages instead of the sources' own.
+    population : str or mapping of str -> int, optional
+        SONATA spike files: None reads every population with node ids kept as
+        cell ids; a name reads that population; ``{name: first_cell}`` reads
+        those populations, node id ``n`` becoming cell ``first_cell + n``.
+    unit_id_column : str, optional
+        NWB files: the units-table column (``"id"`` for the row ids) giving each
+        unit's cell id; default: unit ``k`` of the table is cell ``k``.
 
     Returns
     -------
@@ -519,7 +552,7 @@ def load_rasters(sources: Sequence, *, n_cells: int | None = None, t_start_ms: f
         raise InputError(f"time unit must be one of {sorted(TIME_UNITS)}, got {time_unit!r}")
     factor = TIME_UNITS[time_unit]
     names = list(names) if names is not None else [None] * len(sources)
-    items = [_read_source(obj, factor, name) for obj, name in zip(sources, names)]
+    items = [_read_source(obj, factor, name, population, unit_id_column) for obj, name in zip(sources, names)]
     tables = [t for t in items if isinstance(t, _Table)]
     if any(t.named for t in tables):
         def key(label):
@@ -541,7 +574,8 @@ def load_rasters(sources: Sequence, *, n_cells: int | None = None, t_start_ms: f
         for t in tables:  # name the file whose ids imply more cells than fit in memory
             if t.labels.size and int(t.labels.max()) + 1 > max_cells():
                 i = int(np.argmax(t.labels))
-                place = f"line {t.lines[i]}" if t.lines is not None else f"{t.where} {i}"
+                place = f"line {t.lines[i]}" if t.lines is not None else \
+                    t.place(i) if t.place is not None else f"{t.where} {i}"
                 raise InputError(f"{t.source}: {place}: cell id {t.labels[i]} implies "
                                  f"{int(t.labels[i]) + 1:.3g} cells, more than this machine can "
                                  f"compare ({max_cells():.3g}); give the cell count (--cells)")

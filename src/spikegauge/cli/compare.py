@@ -57,6 +57,27 @@ def _read_costs(path: str, names: list[str]) -> dict:
     return costs
 
 
+def _population(values: tuple[str, ...]):
+    """--population values: None, one name, or {name: first cell} (a name alone starts at cell 0)."""
+    if not values:
+        return None
+    if len(values) == 1 and ":" not in values[0]:
+        return values[0]
+    out = {}
+    for v in values:
+        name, sep, first = v.rpartition(":") if ":" in v else (v, "", "0")
+        try:
+            cell = int(first)
+        except ValueError:
+            cell = -1
+        if not name or cell < 0:
+            raise InputError(f"--population {v!r}: expected NAME or NAME:FIRST_CELL with FIRST_CELL >= 0")
+        if name in out:
+            raise InputError(f"--population {name!r} given twice")
+        out[name] = cell
+    return out
+
+
 def _names(paths: tuple[str, ...]) -> list[str]:
     """Short names of the tests: file or folder names, or the paths where those repeat."""
     stems = [Path(p).name if Path(p).is_dir() else Path(p).stem for p in paths]
@@ -82,14 +103,20 @@ def _names(paths: tuple[str, ...]) -> list[str]:
 @click.option("--cells", "n_cells", type=int, help="Cell count, for files that do not carry one.")
 @click.option("--time-unit", type=click.Choice(["ms", "s"]), default="ms", show_default=True,
               help="Unit of the times in text files.")
+@click.option("--population", "populations", multiple=True, metavar="NAME[:FIRST_CELL]",
+              help="SONATA spike files: read this population (repeatable); with :FIRST_CELL its node id n "
+                   "is cell FIRST_CELL + n. Default: every population, node ids kept.")
+@click.option("--unit-id-column", help="NWB files: units-table column giving each unit's cell id "
+                                       "('id' for the row ids). Default: table order.")
 @click.option("--no-figures", is_flag=True, help="Do not draw the PNG figures.")
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Folder to write.")
 def compare(reference, tests, match_window_ms, tau_ms, cost_per_ms, coincidence_window_ms,
             horizon_window_ms, jitter_limit_ms, costs_file, t_start_ms, t_stop_ms, n_cells, time_unit,
-            no_figures, out_dir):
+            populations, unit_id_column, no_figures, out_dir):
     """Compare the TEST rasters with the REFERENCE raster.
 
-    Rasters are run folders, NPZ files or two-column text files (cell, time).
+    Rasters are run folders, NPZ files, two-column text files (cell, time),
+    SONATA spike files or NWB files (the units table), told apart by content.
     Writes comparison.json, per_cell.csv, pairs.csv and figures/*.png to --out.
     """
     import pandas as pd
@@ -104,7 +131,8 @@ def compare(reference, tests, match_window_ms, tau_ms, cost_per_ms, coincidence_
             reference, dict(zip(names, tests)), costs=costs, match_window_ms=match_window_ms,
             tau_ms=tau_ms, cost_per_ms=cost_per_ms, coincidence_window_ms=coincidence_window_ms,
             horizon_window_ms=horizon_window_ms, jitter_limit_ms=jitter_limit_ms, n_cells=n_cells,
-            t_start_ms=t_start_ms, t_stop_ms=t_stop_ms, time_unit=time_unit)
+            t_start_ms=t_start_ms, t_stop_ms=t_stop_ms, time_unit=time_unit,
+            population=_population(populations), unit_id_column=unit_id_column)
     for w in dict.fromkeys(str(w.message) for w in caught):
         click.echo(f"warning: {w}", err=True)
     first = next(iter(result.comparisons.values()))

@@ -61,9 +61,11 @@ class _Bar:
 @click.option("--target-mismatch-frac", default=0.01, show_default=True, type=float,
               help="Accuracy target: missed + extra spikes as a fraction of the reference's.")
 @click.option("--fresh", is_flag=True, help="Recompute points already stored.")
+@click.option("--sonata", "write_sonata", is_flag=True,
+              help="Also write every stored point's raster (reference runs included) as points/*/spikes.h5.")
 @click.option("--quiet", is_flag=True, help="No progress display.")
 def profile(scenario, out_dir, sweep_file, quick, seeds, jobs, scheduler, target_jitter_ms,
-            target_mismatch_frac, fresh, quiet):
+            target_mismatch_frac, fresh, write_sonata, quiet):
     """Run the reference, the sensitivity ladder and the sweep of SCENARIO; write the profile and its report."""
     from ..profile import run_profile
     from ..profile.summary import profile_text
@@ -82,6 +84,10 @@ def profile(scenario, out_dir, sweep_file, quick, seeds, jobs, scheduler, target
     finally:
         bar.close()
     click.echo(profile_text(doc))
+    if write_sonata:
+        from ..formats import write_profile_sonata
+        written = write_profile_sonata(out_dir)
+        click.echo(f"SONATA spike files: {len(written)} written as {out_dir}/points/*/spikes.h5")
     from ..report.report import build_report
     paths = build_report(out_dir)
     click.echo(f"report: {out_dir}/report.html ({len(paths)} files; `spikegauge report {out_dir}` "

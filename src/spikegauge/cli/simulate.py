@@ -26,12 +26,13 @@ from .main import cli, progress_bar
                    "(default: the whole duration). Drive and network are the same as for the whole run.")
 @click.option("--threads", type=int, help="Number of threads (results do not depend on it).")
 @click.option("--csv", "write_csv", is_flag=True, help="Also write spikes.csv.")
+@click.option("--sonata", "write_sonata", is_flag=True, help="Also write spikes.h5 (a SONATA spike file).")
 @click.option("--max-memory-gb", type=float,
               help="Memory (GB) the run may use; overrides the machine's available memory.")
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Run folder to write.")
 @click.option("--quiet", is_flag=True, help="No progress bar.")
 def simulate(scenario, strategy, stepper, dt_ms, crossing, delivery, rtol, atol, auto_scale, t_stop_ms,
-             threads, write_csv, max_memory_gb, out_dir, quiet):
+             threads, write_csv, write_sonata, max_memory_gb, out_dir, quiet):
     """Integrate SCENARIO once and write spikes.npz and run.json to --out."""
     from ..scenario import load_scenario
     from ..simulation import resolve_settings, simulate as run_simulation
@@ -55,8 +56,14 @@ def simulate(scenario, strategy, stepper, dt_ms, crossing, delivery, rtol, atol,
         run = run_simulation(scen, auto_scale=auto_scale, threads=threads, progress=progress,
                              t_stop_ms=t_stop_ms, **options)
     out = run.save(out_dir)
+    written = ["spikes.npz", "run.json"]
     if write_csv:
         run.spikes.to_csv(out / "spikes.csv", index=False)
+        written.append("spikes.csv")
+    if write_sonata:
+        from ..formats import write_run_sonata
+        write_run_sonata(out)
+        written.append("spikes.h5")
     s = run.settings
     desc = ", ".join(f"{k}={v}" for k, v in s.items() if k not in ("scale_used",))
     click.echo(f"{run.status}: {len(run.spikes)} spikes from {run.n_cells} cells over "
@@ -67,4 +74,4 @@ def simulate(scenario, strategy, stepper, dt_ms, crossing, delivery, rtol, atol,
     c = run.cost
     click.echo(f"cost: {c['steps']} cell-steps, {c['rhs_evals']} rhs evaluations, "
                f"{c['arrivals']} synaptic events, loop {c['wall_s']:.3f} s")
-    click.echo(f"written: {out}/spikes.npz, run.json")
+    click.echo(f"written: {out}/{', '.join(written)}")
