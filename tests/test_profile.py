@@ -172,14 +172,20 @@ def test_profile_resumes_and_executors_agree(tmp_path):
     out = _invoke(["profile", str(scen), "--out", str(a), "--quiet"])
     assert "Verdict:" in out and "horizon after shift probe" in out
     table = pd.read_csv(a / "results.csv")
-    assert list(table["status"]) == ["ok", "ok", "failed", "ok"]
-    assert "smallest delay" in table.loc[2, "message"]
+    swept = table[table["origin"] == "sweep"].reset_index(drop=True)
+    assert list(swept["status"]) == ["ok", "ok", "failed", "ok"]
+    assert "smallest delay" in swept.loc[2, "message"]
+    # both coarsest points met the target, so the sweep found its coarse edges: rk4 doubled up to
+    # the 2 ms smallest delay (1.6 ms; 3.2 would pass it), dp54 up to rtol 0.1
+    added = table[table["origin"] == "coarser"]
+    assert sorted(added["dt_ms"].dropna()) == [0.4, 0.8, 1.6]
+    assert sorted(added["rtol"].dropna()) == pytest.approx([1e-3, 1e-2, 1e-1])
     doc = json.loads((a / "profile.json").read_text())
     assert doc["references"][0]["uncertainty"]["kind"] == "exact"
     assert set(doc["ladder"][0]["probes"]) == {"voltage", "shift", "delete"}
     assert all(len(p["cells"]) == 5 for p in doc["ladder"][0]["probes"].values())
     n_points = len(list((a / "points").iterdir()))
-    assert n_points == 1 + 15 + 4
+    assert n_points == 1 + 15 + 4 + 6
 
     # rerun: nothing recomputed, same results
     _invoke(["profile", str(scen), "--out", str(a), "--quiet"])

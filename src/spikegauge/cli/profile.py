@@ -60,12 +60,15 @@ class _Bar:
               help="Accuracy target: RMS spike-time jitter (ms).")
 @click.option("--target-mismatch-frac", default=0.01, show_default=True, type=float,
               help="Accuracy target: missed + extra spikes as a fraction of the reference's.")
+@click.option("--work-limit-factor", default=10.0, show_default=True, type=float,
+              help="Stop a run once its work passes this many times that of the cheapest point of an "
+                   "earlier round that met the target (comparable strategies); above 1.")
 @click.option("--fresh", is_flag=True, help="Recompute points already stored.")
 @click.option("--sonata", "write_sonata", is_flag=True,
               help="Also write every stored point's raster (reference runs included) as points/*/spikes.h5.")
 @click.option("--quiet", is_flag=True, help="No progress display.")
 def profile(scenario, out_dir, sweep_file, quick, seeds, jobs, scheduler, target_jitter_ms,
-            target_mismatch_frac, fresh, write_sonata, quiet):
+            target_mismatch_frac, work_limit_factor, fresh, write_sonata, quiet):
     """Run the reference, the sensitivity ladder and the sweep of SCENARIO; write the profile and its report."""
     from ..profile import run_profile
     from ..profile.summary import profile_text
@@ -74,7 +77,8 @@ def profile(scenario, out_dir, sweep_file, quick, seeds, jobs, scheduler, target
     try:
         doc = run_profile(scenario, out_dir, sweep_file=sweep_file, quick=quick, seeds=seeds, jobs=jobs,
                           scheduler=scheduler, target_jitter_ms=target_jitter_ms,
-                          target_mismatch_frac=target_mismatch_frac, fresh=fresh, progress=bar)
+                          target_mismatch_frac=target_mismatch_frac, fresh=fresh, progress=bar,
+                          work_limit_factor=work_limit_factor)
     except KeyboardInterrupt:
         bar.close()
         stored = _stored_points(out_dir)

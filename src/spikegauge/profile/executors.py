@@ -56,7 +56,8 @@ def execute_task(task: dict) -> Run:
         ``scenario_text``, ``scenario_source``, ``scenario_digest``, ``seed``,
         ``settings`` (resolved), ``probe`` (dict or None), ``record_steps``
         (list of cells or None), ``threads`` (int or None), ``timed`` (repeat
-        the run until its CPU time is known, :func:`.cost.timed_run`).
+        the run until its CPU time is known, :func:`.cost.timed_run`), ``work_limit``
+        and ``t_stop_ms`` (None or a number, passed to ``simulate``).
     """
     from ..simulation import simulate
     from .reference import apply_probe
@@ -71,7 +72,8 @@ def execute_task(task: dict) -> Run:
             run_once = partial(simulate, net, strategy=s["strategy"], stepper=s.get("stepper"),
                                dt_ms=s.get("dt_ms"), crossing=s.get("crossing"), delivery=s.get("delivery"),
                                rtol=s.get("rtol"), atol=s.get("atol"), threads=task.get("threads"),
-                               record_steps=task.get("record_steps"))
+                               record_steps=task.get("record_steps"), work_limit=task.get("work_limit"),
+                               t_stop_ms=task.get("t_stop_ms"))
             run = timed_run(run_once) if task.get("timed") else run_once()
         except Exception as exc:  # a failing point is a row, not a crash of the sweep
             run = failed_run(net, task, error_message(exc))
@@ -104,6 +106,13 @@ def failed_run(network, task: dict, message: str) -> Run:
     return Run(spikes=pd.DataFrame({"cell": np.empty(0, np.int64), "time_ms": np.empty(0)}),
                n_cells=n, t_start_ms=0.0, t_stop_ms=0.0, group_names=names, group_first=first,
                settings=dict(task["settings"]), status="failed", message=message, cost={})
+
+
+def skipped_run(network, task: dict, message: str) -> Run:
+    """The row of a setting the sweep decided not to run (status ``skipped``)."""
+    run = failed_run(network, task, message)
+    run.status = "skipped"
+    return run
 
 
 class SerialExecutor:

@@ -60,6 +60,8 @@ def judged_window_ms(ladder: dict, duration_ms: float) -> float:
 
 def _comparison_doc(store, digest, run, ref, ref_digest, window, options):
     key = dict(options, judged_window_ms=window, reference=ref_digest)
+    if run.status == "skipped":  # never run, nothing stored
+        return dict(options=key, comparison=None, target=None)
     cached = store.read_comparison(digest)
     if cached is not None and cached.get("options") == json.loads(json.dumps(key)):
         return cached
@@ -81,32 +83,41 @@ def _nan(v):
     return math.nan if v is None else v
 
 
-def point_row(k, task, run, doc, window, spec) -> dict:
-    """One row of ``results.csv``."""
+def meets_target(run, doc, spec) -> bool:
+    """Whether a point meets the target: status ok and, within the evaluation window, RMS
+    jitter and (missed + extra) per reference spike at most the target's."""
+    target = doc["target"] or {}
+    jitter, mism = _nan(target.get("shift_rms_ms")), _nan(target.get("mismatch_fraction"))
+    no_spikes = target.get("n_ref") == 0 and mism == 0
+    return bool(run.status == "ok" and mism <= spec.target_mismatch_frac
+                and (jitter <= spec.target_jitter_ms or no_spikes))
+
+
+def point_row(k, task, run, doc, window, spec, entry=None) -> dict:
+    """One row of ``results.csv`` (``entry``: the point's :class:`.rounds.Entry`)."""
     s = task["settings"]
     row = dict(point=k, seed=task["seed"], label=setting_label(s))
     row.update({c: s.get(c) for c in SETTING_COLUMNS})
     row.update(digest=task["digest"], status=run.status, message=run.message,
                t_reached_ms=run.t_stop_ms)
-    failed = run.status == "failed"
-    for c in COST_KEYS:
-        row[c] = math.nan if failed else run.cost.get(c, math.nan)
-    for c in TIME_COLUMNS:
-        row[c] = math.nan if failed else run.cost.get(c, math.nan)
+    if entry is not None:
+        row.update(origin=entry.origin, round=entry.round,
+                   work_limit=math.nan if entry.work_limit is None else entry.work_limit,
+                   predicted_work=entry.predicted_work)
+    no_cost = run.status in ("failed", "skipped")
+    for c in COST_KEYS + TIME_COLUMNS:
+        row[c] = math.nan if no_cost else run.cost.get(c, math.nan)
     # machine-independent work: a Newton iteration or Rosenbrock linear solve of a point
     # neuron (2-6 states) costs about one right-hand side (common practice)
     row["work"] = row["rhs_evals"] + row["newton_iters"]
     span = run.t_stop_ms - run.t_start_ms
-    row["steps_per_cell_ms"] = row["steps"] / (run.n_cells * span) if span > 0 and not failed else math.nan
-    row["arrivals_per_ms"] = row["arrivals"] / span if span > 0 and not failed else math.nan
+    row["steps_per_cell_ms"] = row["steps"] / (run.n_cells * span) if span > 0 and not no_cost else math.nan
+    row["arrivals_per_ms"] = row["arrivals"] / span if span > 0 and not no_cost else math.nan
     row["target_window_ms"] = window
     target = doc["target"] or {}
     for key in TARGET_KEYS:
         row[f"target_{key}"] = _nan(target.get(key))
-    jitter, mism = row["target_shift_rms_ms"], row["target_mismatch_fraction"]
-    no_spikes = target.get("n_ref") == 0 and mism == 0
-    row["meets_target"] = bool(run.status == "ok" and mism <= spec.target_mismatch_frac
-                               and (jitter <= spec.target_jitter_ms or no_spikes))
+    row["meets_target"] = meets_target(run, doc, spec)
     summary = (doc["comparison"] or {}).get("summary", {})
     for key, v in summary.items():
         if key not in ("n_cells", "t_start_ms", "t_stop_ms") and key not in row:
@@ -118,36 +129,50 @@ def _strip_times(cost: dict) -> dict:
     return {k: v for k, v in cost.items() if k not in TIME_COLUMNS and k != "cell_steps_per_s"}
 
 
-def evaluate(spec, store, networks, ref_tasks, ref_runs, probe_tasks, point_tasks, by_digest, out_dir) -> dict:
-    """Compare every point with its reference; write ``results.csv``; return the profile document."""
-    references, ladders, rows, points = [], [], [], []
+def reference_doc(spec, seed, ref_tasks, ref_runs) -> dict:
+    """The reference of one seed and its uncertainty (``profile.json``'s ``references``)."""
+    runs = ref_runs[seed]
+    ref = runs[-1]
+    unc = reference_uncertainty(runs, spec.target_jitter_ms, spec.target_mismatch_frac, **COMPARE_OPTIONS)
+    return dict(seed=seed, settings=[t["settings"] for t in ref_tasks[seed]],
+                digests=[t["digest"] for t in ref_tasks[seed]], status=ref.status,
+                message=ref.message, spikes=int(len(ref.spikes)), mean_rate_hz=ref.mean_rate_hz,
+                cost=[_strip_times(r.cost) for r in runs], uncertainty=unc)
+
+
+def ladder_doc(ref, probe_tasks, by_digest, seed) -> dict:
+    """The sensitivity ladder of one seed and the evaluation window it sets."""
+    probes = [t["probe"] for t in probe_tasks]
+    horizons = [probe_horizon(ref, by_digest[t["digest"]], t["probe"], **COMPARE_OPTIONS)
+                for t in probe_tasks]
+    ladder = ladder_summary(probes, horizons)
+    return dict(seed=seed, probes=ladder,
+                judged_window_ms=judged_window_ms(ladder, ref.t_stop_ms - ref.t_start_ms))
+
+
+def evaluate(spec, store, ref_tasks, ref_runs, ladders, points, by_digest, out_dir, extra=None) -> dict:
+    """Compare every point with its reference; write ``results.csv``; return the profile document.
+
+    ``points[seed]`` lists ``(entry, task)`` of the seed's sweep in table order;
+    ``ladders[seed]`` is :func:`ladder_doc`'s; ``extra`` is merged into the document.
+    """
+    references, rows, listed = [], [], []
     k = 0
     for seed in spec.seeds:
-        runs = ref_runs[seed]
-        ref, ref_digest = runs[-1], ref_tasks[seed][-1]["digest"]
-        unc = reference_uncertainty(runs, spec.target_jitter_ms, spec.target_mismatch_frac,
-                                    **COMPARE_OPTIONS)
-        references.append(dict(seed=seed, settings=[t["settings"] for t in ref_tasks[seed]],
-                               digests=[t["digest"] for t in ref_tasks[seed]], status=ref.status,
-                               message=ref.message, spikes=int(len(ref.spikes)),
-                               mean_rate_hz=ref.mean_rate_hz,
-                               cost=[_strip_times(r.cost) for r in runs], uncertainty=unc))
-        probes = [t["probe"] for t in probe_tasks[seed]]
-        horizons = [probe_horizon(ref, by_digest[t["digest"]], t["probe"], **COMPARE_OPTIONS)
-                    for t in probe_tasks[seed]]
-        ladder = ladder_summary(probes, horizons)
-        window = judged_window_ms(ladder, ref.t_stop_ms - ref.t_start_ms)
-        ladders.append(dict(seed=seed, probes=ladder, judged_window_ms=window))
-        for task in point_tasks[seed]:
+        ref, ref_digest = ref_runs[seed][-1], ref_tasks[seed][-1]["digest"]
+        references.append(reference_doc(spec, seed, ref_tasks, ref_runs))
+        window = ladders[seed]["judged_window_ms"]
+        for entry, task in points[seed]:
             run = by_digest[task["digest"]]
             doc = _comparison_doc(store, task["digest"], run, ref, ref_digest, window, COMPARE_OPTIONS)
-            rows.append(point_row(k, task, run, doc, window, spec))
-            points.append(dict(point=k, seed=seed, label=setting_label(task["settings"]),
+            rows.append(point_row(k, task, run, doc, window, spec, entry))
+            listed.append(dict(point=k, seed=seed, label=setting_label(task["settings"]),
                                digest=task["digest"], status=run.status, message=run.message))
             k += 1
     table = pd.DataFrame(rows)
     write_results_csv(out_dir, table)
     scen = spec.scenario
+    n_settings = len(points[spec.seeds[0]])
     doc = dict(
         spikegauge_version=__version__,
         scenario=dict(name=scen.name, path=str(scen.path) if scen.path else None,
@@ -155,14 +180,13 @@ def evaluate(spec, store, networks, ref_tasks, ref_runs, probe_tasks, point_task
                       seed=scen.seed, models=spec.model_names),
         target=dict(jitter_ms=spec.target_jitter_ms, mismatch_frac=spec.target_mismatch_frac),
         compare_options=COMPARE_OPTIONS,
-        sweep=dict(source=spec.sweep_source, n_settings=len(spec.sweep), n_points=len(rows),
-                   n_runs=sum(len(ref_tasks[s]) + len(probe_tasks[s]) + len(point_tasks[s])
-                              for s in spec.seeds)),
+        sweep=dict(source=spec.sweep_source, n_settings=n_settings, n_points=len(rows)),
         seeds=spec.seeds,
         references=references,
-        ladder=ladders,
-        points=points,
+        ladder=[ladders[s] for s in spec.seeds],
+        points=listed,
     )
+    doc.update(extra or {})
     doc.update(conclusions(table, doc))
     return jsonable(doc)
 

@@ -1,18 +1,20 @@
 """Run a profile: reference, sensitivity ladder and sweep, then the results table.
 
-:func:`run_profile` is what ``spikegauge profile`` calls. It works in three
-stages, each a batch of points handed to an executor (serial, local
-processes or Dask; :mod:`.executors`) and kept in the point store
-(:mod:`.store`), so an interrupted profile resumes where it stopped:
+:func:`run_profile` is what ``spikegauge profile`` calls. Every batch of
+runs is handed to an executor (serial, local processes or Dask;
+:mod:`.executors`) and kept in the point store (:mod:`.store`), so an
+interrupted profile resumes where it stopped:
 
 1. the reference runs of every seed (:mod:`.reference`);
-2. the ladder probes (they perturb the reference's spikes) and the sweep
-   points of every seed;
+2. the ladder probes (they perturb the reference's spikes) together with the
+   first round of the sweep; then the sweep's further rounds, each planned
+   from the comparisons of the earlier ones (:mod:`.rounds`: cheap points
+   first, the edges extended, hopeless runs stopped or skipped);
 3. comparisons of every point with its seed's reference, over the whole run
-   and over the judged window (the target-sized probe's median horizon),
+   and over the evaluation window (the target-sized probe's median horizon),
    written to ``results.csv`` and ``profile.json`` (:mod:`.results`).
 
-Only wall-time columns depend on the machine, the executor or on how often a
+Only time columns depend on the machine, the executor or on how often a
 profile was interrupted: everything else is a deterministic function of the
 scenario, the settings, the seeds and the package version.
 """
@@ -28,11 +30,15 @@ from ..errors import InputError
 from ..network import build_network
 from ..scenario import parse_scenario
 from .cost import COST_METHOD, THREADS
-from .executors import make_executor
+from .executors import make_executor, skipped_run
+from .results import COMPARE_OPTIONS
+from .rounds import WORK_LIMIT_FACTOR, SweepPlan
 from .reference import ladder_probes, reference_settings
 from .store import PointStore, point_digest
 from .sweep import default_sweep, load_sweep_file, parse_sweep, quick_sweep, setting_label, split_sweep_table
 
+N_PROBES_EXPECTED = 15
+"""Ladder probes of a seed (three kinds on five cells), for the first progress total."""
 N_STEP_TRACE_CELLS = 12
 """Cells whose adaptive steps are recorded (step-size traces, steps against firing rate)."""
 
@@ -89,11 +95,14 @@ def prepare(scenario_path, *, sweep_file=None, quick=False, seeds=1, target_jitt
                        target_mismatch_frac=float(target_mismatch_frac))
 
 
-def _task(spec: ProfileSpec, seed: int, settings: dict, probe=None, record_steps=None, timed=False):
+def _task(spec: ProfileSpec, seed: int, settings: dict, probe=None, record_steps=None, timed=False,
+          work_limit=None, t_stop_ms=None):
     t = dict(scenario_text=spec.scenario_text, scenario_source=str(spec.scenario.path or ""),
              scenario_digest=spec.scenario_digest, scenario_name=spec.scenario.name, seed=int(seed),
              settings=dict(settings), probe=probe, record_steps=record_steps, version=__version__,
-             threads=THREADS, timing=COST_METHOD if timed else None, timed=timed)
+             threads=THREADS, timing=COST_METHOD if timed else None, timed=timed,
+             work_limit=None if work_limit is None else float(work_limit),
+             t_stop_ms=None if t_stop_ms is None else float(t_stop_ms))
     if not t["scenario_source"]:
         t["scenario_source"] = None
     t["digest"] = point_digest(t)
@@ -104,6 +113,8 @@ def _label(task) -> str:
     if task["probe"]:
         p = task["probe"]
         return f"seed {task['seed']} reference perturbed ({p['kind']}, cell {p['cell']})"
+    if task.get("t_stop_ms") is not None:
+        return f"seed {task['seed']} {setting_label(task['settings'])} (pilot, {task['t_stop_ms']:g} ms)"
     return f"seed {task['seed']} {setting_label(task['settings'])}"
 
 
@@ -121,8 +132,10 @@ class _Batch:
         self.store, self.executor, self.fresh, self.progress = store, executor, fresh, progress
         self.computed = 0
         self.retried = 0
+        self.total_runs = 0
 
     def run(self, tasks):
+        self.total_runs += len(tasks)
         todo, retry = [], set()
         for t in tasks:
             if self.fresh or not self.store.has(t["digest"]):
@@ -146,7 +159,7 @@ class _Batch:
 
 def run_profile(scenario_path, out_dir, *, sweep_file=None, quick=False, seeds=1, jobs=None,
                 scheduler=None, target_jitter_ms=0.1, target_mismatch_frac=0.01, fresh=False,
-                progress=None, executor=None) -> dict:
+                progress=None, executor=None, work_limit_factor=WORK_LIMIT_FACTOR) -> dict:
     """Profile a scenario into ``out_dir`` (see the module docstring).
 
     Parameters
@@ -162,7 +175,7 @@ def run_profile(scenario_path, out_dir, *, sweep_file=None, quick=False, seeds=1
     seeds : int
         Number of network and drive realisations (seeds ``seed, seed+1, ...``).
     jobs : int, optional
-        Local worker processes.
+        Local worker processes (default: one per core).
     scheduler : str, optional
         Address of a Dask scheduler.
     target_jitter_ms, target_mismatch_frac : float
@@ -170,18 +183,23 @@ def run_profile(scenario_path, out_dir, *, sweep_file=None, quick=False, seeds=1
     fresh : bool
         Recompute points already stored.
     progress : object, optional
-        ``progress.total(n)`` and ``progress.step(label)`` are called as points finish.
+        ``progress.total(n)`` and ``progress.step(label)`` are called as runs finish.
     executor : optional
         An executor object (tests); overrides ``jobs`` and ``scheduler``.
+    work_limit_factor : float
+        A run is stopped once its work passes this many times the least work of a
+        point of an earlier round that met the target (:mod:`.rounds`); above 1.
 
     Returns
     -------
     dict
         The profile document written to ``profile.json``.
     """
-    from .results import evaluate
+    from .results import evaluate, ladder_doc, meets_target, write_profile_json, _comparison_doc
 
     t_start = time.perf_counter()
+    if not (work_limit_factor > 1 and math.isfinite(work_limit_factor)):
+        raise InputError(f"--work-limit-factor: must be a number above 1, got {work_limit_factor}")
     spec = prepare(scenario_path, sweep_file=sweep_file, quick=quick, seeds=seeds,
                    target_jitter_ms=target_jitter_ms, target_mismatch_frac=target_mismatch_frac)
     out = Path(out_dir)
@@ -190,13 +208,15 @@ def run_profile(scenario_path, out_dir, *, sweep_file=None, quick=False, seeds=1
     own = executor is None
     executor = make_executor(jobs, scheduler) if own else executor
     networks = {s: build_network(dataclasses.replace(spec.scenario, seed=s)) for s in spec.seeds}
+    plans = {s: SweepPlan(spec.sweep, networks[s].d_min_ms, spec.scenario.duration_ms, work_limit_factor)
+             for s in spec.seeds}
     ref_settings = reference_settings(spec.model_names)
-    n_probes_guess = 15
-    total = len(spec.seeds) * (len(ref_settings) + n_probes_guess + len(spec.sweep))
-    prog_total = getattr(progress, "total", lambda n: None)
-    prog_step = getattr(progress, "step", lambda label: None)
-    prog_total(total)
-    batch = _Batch(store, executor, fresh, prog_step)
+    progress = _Progress(progress)
+    progress.add(len(spec.seeds) * (len(ref_settings) + N_PROBES_EXPECTED + len(spec.sweep)))
+    batch = _Batch(store, executor, fresh, progress.step)
+    points = {s: {} for s in spec.seeds}   # seed -> {id(entry): task}
+    pilots = {s: [] for s in spec.seeds}   # seed -> [(pilot, task)]
+    by_digest = {}
     try:
         ref_tasks = {s: [_task(spec, s, rs) for rs in ref_settings] for s in spec.seeds}
         flat = [t for s in spec.seeds for t in ref_tasks[s]]
@@ -206,22 +226,96 @@ def run_profile(scenario_path, out_dir, *, sweep_file=None, quick=False, seeds=1
                   if ref_runs[s][-1].status == "ok" else [] for s in spec.seeds}
         probe_tasks = {s: [_task(spec, s, ref_settings[-1], probe=p) for p in probes[s]]
                        for s in spec.seeds}
-        point_tasks = {s: [_task(spec, s, st, timed=True,
+        progress.add(sum(len(probe_tasks[s]) for s in spec.seeds) - len(spec.seeds) * N_PROBES_EXPECTED)
+        ladders = None
+        while True:
+            todo = [] if ladders is not None else [t for s in spec.seeds for t in probe_tasks[s]]
+            round_entries = []
+            for s in spec.seeds:
+                entries, new_pilots = plans[s].next_round()
+                for pilot in new_pilots:
+                    task = _task(spec, s, pilot.settings, t_stop_ms=pilot.t_stop_ms)
+                    pilots[s].append((pilot, task))
+                    todo.append(task)
+                for e in entries:
+                    task = _task(spec, s, e.settings, timed=True, work_limit=e.work_limit,
                                  record_steps=step_trace_cells(networks[s].n_cells)
-                                 if st["strategy"] != "fixed" else None)
-                           for st in spec.sweep] for s in spec.seeds}
-        prog_total(len(flat) + sum(len(probe_tasks[s]) + len(point_tasks[s]) for s in spec.seeds))
-        flat2 = [t for s in spec.seeds for t in probe_tasks[s] + point_tasks[s]]
-        runs2 = batch.run(flat2)
+                                 if e.settings["strategy"] != "fixed" else None)
+                    points[s][id(e)] = task
+                    round_entries.append((s, e, task))
+                    todo.append(task)
+            if not todo:
+                break
+            progress.grow_to(progress.done + len(todo) + _unscheduled(plans))
+            for task, run in zip(todo, batch.run(todo)):
+                by_digest[task["digest"]] = run
+            if ladders is None:
+                ladders = {s: ladder_doc(ref_runs[s][-1], probe_tasks[s], by_digest, s) for s in spec.seeds}
+            for s in spec.seeds:
+                for pilot, task in pilots[s]:
+                    if pilot.status == "pending":
+                        run = by_digest[task["digest"]]
+                        pilot.status, pilot.t_reached_ms = run.status, run.t_stop_ms
+                        pilot.work = run.cost.get("rhs_evals", math.nan) + run.cost.get("newton_iters", 0)
+            for s, e, task in round_entries:
+                run = by_digest[task["digest"]]
+                doc = _comparison_doc(store, task["digest"], run, ref_runs[s][-1], ref_tasks[s][-1]["digest"],
+                                      ladders[s]["judged_window_ms"], COMPARE_OPTIONS)
+                plans[s].record(e, run.status, run.cost.get("rhs_evals", math.nan)
+                                + run.cost.get("newton_iters", 0), meets_target(run, doc, spec))
+            for s in spec.seeds:
+                plans[s].close_round()
     finally:
         if own:
             executor.close()
-    by_digest = {t["digest"]: r for t, r in zip(flat2, runs2)}
-    doc = evaluate(spec, store, networks, ref_tasks, ref_runs, probe_tasks, point_tasks, by_digest, out)
+    table_points = {}
+    for s in spec.seeds:
+        rows = []
+        for e in plans[s].entries:
+            task = points[s].get(id(e))
+            if task is None:  # skipped: never run, its prediction is the row
+                task = _task(spec, s, e.settings, timed=True, work_limit=e.work_limit)
+                by_digest[task["digest"]] = skipped_run(networks[s], task, e.message)
+            rows.append((e, task))
+        table_points[s] = rows
+    n_runs = batch.total_runs
+    extra = dict(pilots=[dict(seed=s, label=setting_label(p.settings), t_stop_ms=p.t_stop_ms,
+                              status=p.status, work=p.work, t_reached_ms=p.t_reached_ms,
+                              predicted_work=p.predicted_work(spec.scenario.duration_ms))
+                         for s in spec.seeds for p, _ in pilots[s]],
+                 work_limit_factor=float(work_limit_factor))
+    doc = evaluate(spec, store, ref_tasks, ref_runs, ladders, table_points, by_digest, out, extra)
+    doc["sweep"]["n_runs"] = n_runs
     doc["timing"] = dict(wall_s=time.perf_counter() - t_start, points_computed=batch.computed,
                          failed_points_retried=batch.retried,
                          executor=executor.description)
-    from .results import write_profile_json
-
     write_profile_json(out, doc)
     return doc
+
+
+def _unscheduled(plans) -> int:
+    """Entries of every seed still pending (a guess of the runs to come, for progress)."""
+    return sum(1 for p in plans.values() for e in p.entries if e.status == "pending")
+
+
+class _Progress:
+    """The caller's progress object (``total(n)``, ``step(label)``), both optional; the total
+    grows as the sweep adds rounds and settings, and never falls below what is done."""
+
+    def __init__(self, target):
+        self._total = getattr(target, "total", lambda n: None)
+        self._step = getattr(target, "step", lambda label: None)
+        self.n = 0
+        self.done = 0
+
+    def add(self, k: int) -> None:
+        self.n = max(self.done, self.n + k)
+        self._total(self.n)
+
+    def grow_to(self, n: int) -> None:
+        self.n = max(n, self.done)
+        self._total(self.n)
+
+    def step(self, label: str) -> None:
+        self.done += 1
+        self._step(label)

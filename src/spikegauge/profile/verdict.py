@@ -160,6 +160,14 @@ def _reason(rows, best, n_cells) -> str:
             parts.append(f"{s} at the target: {b['steps_per_cell_ms']:.3g} steps per cell per ms, "
                          f"{b['cpu_s']:.3g} s, {b['work']:.4g} work units, "
                          f"{_per_step(b):.3g} µs per cell-step")
+    for s in STRATEGY_ORDER:
+        mine = rows[rows["strategy"] == s]
+        if s in best or not len(mine):
+            continue
+        counts = mine["status"].value_counts()
+        held = [f"{counts[k]} {k}" for k in ("stopped", "skipped", "diverged", "failed") if k in counts]
+        parts.append(f"{s}: no setting met the target ({', '.join(held) or 'all ran and missed it'}"
+                     f"{'; stopped and skipped settings would have passed the work limit' if held else ''})")
     ranked_s = sorted(best.values(), key=lambda r: (r["cpu_s"], r["point"]))
     ranked_w = sorted(best.values(), key=lambda r: (r["work"], r["point"]))
     if len(ranked_s) > 1 and ranked_s[0]["strategy"] != ranked_w[0]["strategy"] \

@@ -26,7 +26,7 @@ def plot_front(table: pd.DataFrame, doc: dict, error: str = "jitter", cost: str 
     """Work–precision diagram: cost against error of every ok point, each strategy's front as a
     line, the target region shaded, the recommended point ringed, the reference's uncertainty
     drawn as a line."""
-    fig, ax = _new_figure(None, (7.0, 4.8))
+    fig, ax = _new_figure(None, (7.5, 6.4))
     ecol, ccol = ERROR_MEASURES[error], COST_MEASURES[cost]
     seed0 = doc["seeds"][0]
     rows = table[(table["seed"] == seed0) & (table["status"] == "ok") & table[ccol].notna()]
@@ -44,7 +44,7 @@ def plot_front(table: pd.DataFrame, doc: dict, error: str = "jitter", cost: str 
     if error in ("jitter", "mismatch"):
         limit = doc["target"]["jitter_ms" if error == "jitter" else "mismatch_frac"]
         ax.axhspan(floor, limit, color="0.88", zorder=0,
-                   label="within the target (this error only; see the verdict for both)")
+                   label="within the target (this error alone)")
     if error == "jitter":
         unc = doc["references"][0]["uncertainty"].get("shift_rms_ms")
         if unc is not None and np.isfinite(unc) and unc > 0:
@@ -57,15 +57,36 @@ def plot_front(table: pd.DataFrame, doc: dict, error: str = "jitter", cost: str 
                    edgecolors=OKABE_ITO["vermillion"], linewidths=2.0, label="recommended", zorder=5)
     ax.set_xscale("log")
     ax.set_yscale("log")
+    _draw_lower_bounds(ax, table[table["seed"] == seed0], cost)
     ax.set_xlabel({"work": "work (rhs evaluations + Newton iterations)",
                    "cpu": "CPU seconds on one thread"}[cost])
     ax.set_ylabel({"jitter": "RMS jitter in the evaluation window (ms)",
                    "mismatch": "(missed + extra) per reference spike",
                    "van-rossum": "van Rossum distance (mean over cells)",
                    "rate": "RMS rate error (Hz)"}[error])
-    ax.legend(fontsize="small", loc="best", framealpha=0.9)
-    ax.set_title("Work–precision diagram (points at the bottom edge had zero error)", fontsize="medium")
+    ax.legend(fontsize="small", loc="upper left", bbox_to_anchor=(0.0, -0.12), ncol=2, frameon=False)
+    ax.set_title("Work–precision diagram (points at the bottom edge had zero error)", fontsize="medium",
+                 pad=12)
     return fig
+
+
+def _draw_lower_bounds(ax, rows: pd.DataFrame, cost: str) -> None:
+    """Runs the sweep stopped at its work limit, and settings it skipped, as right-pointing
+    triangles along the top edge: their cost is at least there (a skipped setting's predicted
+    work; it has no CPU time), their error unknown."""
+    top = ax.get_ylim()[1]
+    for status, filled in (("stopped", True), ("skipped", False)):
+        r = rows[rows["status"] == status]
+        x = r[COST_MEASURES[cost]] if status == "stopped" or cost == "cpu" else r["predicted_work"]
+        x = x.to_numpy(float)
+        x = x[np.isfinite(x) & (x > 0)]
+        if not x.size:
+            continue
+        ax.scatter(x, np.full(x.size, top), marker=">", s=50, clip_on=False, zorder=4,
+                   color="0.3" if filled else "none", edgecolors="0.3",
+                   label="stopped at the work limit (cost at least here)"
+                   if status == "stopped" else "skipped (predicted cost, never run)")
+    ax.set_ylim(top=top)
 
 
 def _floor(values) -> float:

@@ -179,6 +179,18 @@ def build_report(profile_dir) -> list[Path]:
           "a step costs besides them (error control, dense output, crossing search, event handling), "
           "which is why the verdict ranks by CPU seconds.")
 
+    rep.h(2, "How the sweep ran")
+    rep.p(_sweep_story(rows, doc))
+    unusual = rows[(rows["origin"] != "sweep") | rows["status"].isin(["stopped", "skipped"])] \
+        if "origin" in rows else rows.iloc[0:0]
+    if len(unusual):
+        rep.table(["setting", "added", "round", "status", "work", "work limit", "note"],
+                  [[r["label"], "" if r["origin"] == "sweep" else f"{r['origin']} edge",
+                    fmt(r["round"]) if r["round"] >= 0 else "",
+                    r["status"], fmt(r["work"] if r["status"] != "skipped" else r["predicted_work"]),
+                    fmt(r["work_limit"]), r["message"] if isinstance(r["message"], str) else ""]
+                   for _, r in unusual.iterrows()])
+
     rep.h(2, "Measured orders")
     rep.table(["strategy", "stepper", "crossing/delivery", "measured slope", "expected", "source"],
               [[f["strategy"], f["stepper"], f"{f['crossing']}/{f['delivery']}", _fit_text(f),
@@ -263,6 +275,26 @@ def build_report(profile_dir) -> list[Path]:
             Path(tmp).write_text(text, encoding="utf-8")
         written.append(d / name)
     return written
+
+
+def _sweep_story(rows: pd.DataFrame, doc: dict) -> str:
+    """One paragraph: rounds, edges extended, runs stopped or skipped, the pilots."""
+    if "origin" not in rows:
+        return "The sweep ran every setting."
+    counts = rows["status"].value_counts()
+    n_rounds = int(rows["round"].max()) + 1 if rows["round"].max() >= 0 else 0
+    added = rows["origin"].value_counts()
+    text = (f"The sweep ran in {n_rounds} rounds, each family of settings from its cheapest setting to "
+            f"its dearest. {added.get('coarser', 0)} settings were added at the coarse edge (the coarsest "
+            f"setting of a family met the target) and {added.get('finer', 0)} at the fine edge (its "
+            f"strategy met no target). {counts.get('stopped', 0)} runs were stopped at the work limit "
+            f"({fmt(doc.get('work_limit_factor', float('nan')))} times the least work of a point of an "
+            f"earlier round that met the target, among comparable strategies) and "
+            f"{counts.get('skipped', 0)} settings were skipped without running.")
+    for p in doc.get("pilots", []):
+        text += (f" A {fmt(p['t_stop_ms'])} ms pilot of {p['label']} predicted "
+                 f"{fmt(p['predicted_work'])} work units for the whole run.")
+    return text
 
 
 def _fit_text(f: dict) -> str:
