@@ -21,13 +21,16 @@ from .main import cli, progress_bar
 @click.option("--atol", type=float, help="Absolute tolerance in units of each state's scale (adaptive).")
 @click.option("--auto-scale", is_flag=True, help="Measure state scales with a short pilot run (adaptive).")
 @click.option("--threads", type=int, help="Number of threads (results do not depend on it).")
+@click.option("--open-loop", "open_loop", type=click.Path(),
+              help="Open loop: replay this raster (a run folder, or an NPZ or CSV file of cell, "
+                   "time_ms) as the recurrent input instead of the network's own spikes.")
 @click.option("--csv", "write_csv", is_flag=True, help="Also write spikes.csv.")
 @click.option("--max-memory-gb", type=float,
               help="Memory (GB) the run may use; overrides the machine's available memory.")
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Run folder to write.")
 @click.option("--quiet", is_flag=True, help="No progress bar.")
 def simulate(scenario, strategy, stepper, dt_ms, crossing, delivery, rtol, atol, auto_scale, threads,
-             write_csv, max_memory_gb, out_dir, quiet):
+             open_loop, write_csv, max_memory_gb, out_dir, quiet):
     """Integrate SCENARIO once and write spikes.npz and run.json to --out."""
     from ..scenario import load_scenario
     from ..simulation import resolve_settings, simulate as run_simulation
@@ -48,7 +51,7 @@ def simulate(scenario, strategy, stepper, dt_ms, crossing, delivery, rtol, atol,
             done[0] = now
 
         run = run_simulation(scen, auto_scale=auto_scale, threads=threads, progress=progress,
-                             **options)
+                             open_loop=open_loop, **options)
     out = run.save(out_dir)
     if write_csv:
         run.spikes.to_csv(out / "spikes.csv", index=False)
@@ -59,6 +62,10 @@ def simulate(scenario, strategy, stepper, dt_ms, crossing, delivery, rtol, atol,
     if run.message:
         click.echo(run.message)
     click.echo(f"setting: {desc}")
+    replayed = run.meta.get("open_loop_raster")
+    if replayed is not None:
+        click.echo(f"open loop: replayed {replayed['spikes']} spikes of {replayed['source']} "
+                   f"(sha256 {replayed['sha256'][:16]})")
     c = run.cost
     click.echo(f"cost: {c['steps']} steps, {c['rhs_evals']} rhs evaluations, {c['arrivals']} arrivals, "
                f"loop {c['wall_s']:.3f} s")

@@ -450,7 +450,7 @@ def default_boundaries(d_min_ms: float, t_stop_ms: float) -> np.ndarray:
 
 def run_windows(network, kernel, t_stop_ms: float, state: CellState | None = None,
                 progress=None, spike_capacity: int = 8, on_window=None,
-                extra_edges=None) -> WindowLoopResult:
+                extra_edges=None, replay=None) -> WindowLoopResult:
     """Integrate ``network`` from 0 to ``t_stop_ms`` with a strategy's window kernel.
 
     Parameters
@@ -468,6 +468,10 @@ def run_windows(network, kernel, t_stop_ms: float, state: CellState | None = Non
         Called after each window (used for trace recording).
     extra_edges : ndarray or None
         Further window edges (sampling times); windows only get shorter.
+    replay : ReplayRaster or None
+        Open loop (:mod:`spikegauge.integrate.replay`): after each window the
+        raster's spikes up to its end become the arrivals, not the window's
+        own spikes (which are still recorded).
 
     Returns
     -------
@@ -487,6 +491,7 @@ def run_windows(network, kernel, t_stop_ms: float, state: CellState | None = Non
         edges = edges[np.concatenate([[True], np.diff(edges) > EDGE_MERGE_MS])]
     queue = ArrivalQueue(network, kernel.effective_time)
     drive = DriveFeed(network, kernel.effective_time)
+    feed = replay.feed() if replay is not None else None
     counters = np.zeros((n, N_COUNTERS), dtype=np.int64)
     out_cells, out_times = [], []
     status, message, t_reached = "ok", "", float(edges[-1])
@@ -527,7 +532,12 @@ def run_windows(network, kernel, t_stop_ms: float, state: CellState | None = Non
             break
         out_cells.append(cells)
         out_times.append(times)
-        queue.push(cells, times)
+        if feed is None:
+            queue.push(cells, times)
+        else:
+            # Open loop: the replayed raster's spikes of this window take the place of the
+            # window's own, pushed in the same (cell, time) order.
+            queue.push(*feed.take(t1))
         if on_window is not None:
             on_window(t0, t1, state)
         if progress is not None:
