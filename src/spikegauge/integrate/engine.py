@@ -10,7 +10,9 @@ strategies:
   walking the CSR connectivity; handed out window by window.
 * :func:`run_windows`: gathers each window's arrivals (network + drive), sorts
   them per cell in the fixed order (time, source, synapse), calls the
-  strategy's window kernel, collects spikes in cell order and schedules them.
+  strategy's window kernel, collects spikes in cell order and schedules them
+  (open loop: schedules a replayed raster's spikes of the window instead, see
+  :mod:`spikegauge.integrate.replay`).
 
 A strategy supplies a *window kernel*: an object with
 
