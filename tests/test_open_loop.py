@@ -344,7 +344,7 @@ def test_replay_raster_refuses_cells_outside_the_network(small_network):
 def test_simulate_command_replays_a_run_folder(tmp_path):
     options = ["--stepper", "rk2", "--dt-ms", "0.1", "--crossing", "linear", "--delivery", "grid",
                "--quiet"]
-    res = CliRunner().invoke(cli, ["simulate", "scenarios/demo-lif.toml", *options,
+    res = CliRunner().invoke(cli, ["simulate", "scenarios/demo-lif.toml", *options, "--csv",
                                    "--out", str(tmp_path / "closed")])
     assert res.exit_code == 0, res.output
     res = CliRunner().invoke(cli, ["simulate", "scenarios/demo-lif.toml", *options,
@@ -357,6 +357,14 @@ def test_simulate_command_replays_a_run_folder(tmp_path):
     assert opened.settings["open_loop"] is True
     assert opened.meta["open_loop_raster"]["sha256"] == raster_digest(closed.spikes.cell,
                                                                       closed.spikes.time_ms)
+    # The same raster as a CSV file (cell, time_ms), as another simulator would write it.
+    res = CliRunner().invoke(cli, ["simulate", "scenarios/demo-lif.toml", *options,
+                                   "--open-loop", str(tmp_path / "closed" / "spikes.csv"),
+                                   "--out", str(tmp_path / "open-csv")])
+    assert res.exit_code == 0, res.output
+    from_csv = spikegauge.load_run(tmp_path / "open-csv")
+    same_spikes(from_csv, closed)
+    assert from_csv.meta["open_loop_raster"]["sha256"] == opened.meta["open_loop_raster"]["sha256"]
     res = CliRunner().invoke(cli, ["simulate", "scenarios/demo-lif.toml", *options,
                                    "--open-loop", str(tmp_path / "missing"),
                                    "--out", str(tmp_path / "x")])
