@@ -334,6 +334,12 @@ def test_emission_step_puts_grid_points_at_the_end_of_their_step():
 def test_replay_raster_refuses_cells_outside_the_network(small_network):
     with pytest.raises(spikegauge.InputError, match="cell id 40"):
         replay_raster((np.array([3, 40]), np.array([1.0, 2.0])), small_network, 150.0)
+    with pytest.raises(spikegauge.InputError, match="not an integer"):
+        replay_raster((np.array([3.5]), np.array([1.0])), small_network, 150.0)
+    # Spikes before the start or at or after the end of the run cannot act in it.
+    kept = replay_raster((np.array([1, 2, 3, 4]), np.array([-1.0, 0.0, 149.9, 150.0])),
+                         small_network, 150.0)
+    np.testing.assert_array_equal(kept.cell, [2, 3])
     with pytest.raises(spikegauge.InputError, match="not finite"):
         ReplayRaster(np.array([1]), np.array([np.nan]), 40)
     other = spikegauge.simulate(_relay_network(), strategy="exact")

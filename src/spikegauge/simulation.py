@@ -237,17 +237,16 @@ def replay_raster(source, network, t_stop_ms: float) -> ReplayRaster:
     InputError
         An unreadable source, a raster of another network size, cell ids beyond the network.
     """
-    from .analysis.rasters import as_raster
+    from .analysis.rasters import Raster, as_raster
 
     n = network.n_cells
     if isinstance(source, (tuple, list)):
         if len(source) != 2:
             raise InputError(f"open_loop: give a run, a (cell, time_ms) pair of arrays or a raster "
                              f"file, got a sequence of {len(source)}")
-        cell, time_ms = (np.asarray(a) for a in source)
-        replay = ReplayRaster(cell, time_ms, n, source="<arrays>")
-        keep = (replay.time_ms >= 0.0) & (replay.time_ms < t_stop_ms)
-        return ReplayRaster(replay.cell[keep], replay.time_ms[keep], n, source=replay.source)
+        raster = Raster.from_arrays(source[0], source[1], n_cells=n, t_start_ms=0.0,
+                                    t_stop_ms=t_stop_ms, source="open_loop")
+        return ReplayRaster(raster.cell, raster.time_ms, n, source="<arrays>")
     if isinstance(source, Run) and source.n_cells != n:
         raise InputError(f"open_loop: the run replayed has {source.n_cells} cells; the network "
                          f"has {n}")
