@@ -4,7 +4,7 @@ Public names::
 
     load_scenario(path) -> Scenario
     build_network(scenario) -> Network
-    simulate(scenario, strategy=..., ...) -> Run
+    simulate(scenario, strategy=..., ..., open_loop=None) -> Run
     load_run(directory) -> Run
     compare(reference, test, ...) -> Comparison
     compare_many(reference, {name: test}, costs=None) -> ComparisonSet

@@ -16,6 +16,7 @@ import scipy
 
 from .errors import InputError
 from .integrate.engine import N_COUNTERS, CellState, SpikeBuffer, WindowArrivals, run_windows
+from .integrate.replay import ReplayRaster
 from .runs import Run
 
 STRATEGIES = ("fixed", "global-adaptive", "local-adaptive", "exact")
@@ -122,7 +123,7 @@ def make_kernel(network, settings: dict, auto_scale=False, record_steps=None):
 def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, delivery=None,
              rtol=None, atol=None, auto_scale=False, threads=None, t_stop_ms=None,
              record_cells=None, record_interval_ms=None, record_steps=None,
-             progress=None, work_limit=None) -> Run:
+             progress=None, work_limit=None, open_loop=None) -> Run:
     """Integrate a scenario's network with one setting.
 
     Parameters
@@ -151,6 +152,17 @@ def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, d
     work_limit : float, optional
         Stop once the work (rhs evaluations plus Newton iterations) exceeds this,
         at the end of a window; the run's status is then ``"stopped"``.
+    open_loop : Run, (cell, time_ms) pair of arrays, path, or None
+        Open loop: the network's recurrent input comes from these spikes (every
+        synapse delivers them with its own delay, weight and receptor), not from
+        its own; drive is as usual, and a cell's own spikes still reset it, start
+        its refractory period and are the run's spikes. A path is a run folder,
+        or an NPZ or CSV raster (:func:`spikegauge.analysis.rasters.as_raster`).
+        Spikes before 0 or at or after the end of the run are left out. The run
+        records ``settings["open_loop"] = True`` and, in ``meta["open_loop_raster"]``,
+        the replayed spikes' count, source and SHA-256
+        (:func:`spikegauge.integrate.replay.raster_digest`). Replaying a setting's
+        own raster with that setting reproduces it exactly.
 
     Returns
     -------
@@ -169,6 +181,7 @@ def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, d
         # The drive (Poisson trains, step ends, input spikes) is defined up to the duration only.
         raise InputError(f"t_stop_ms (--t-stop-ms): must not exceed the scenario's duration_ms = "
                          f"{network.t_stop_ms:g}, got {t_stop:g}")
+    replay = None if open_loop is None else replay_raster(open_loop, network, t_stop)
     if threads is not None and not 1 <= int(threads) <= numba.config.NUMBA_NUM_THREADS:
         raise InputError(f"threads: must be between 1 and {numba.config.NUMBA_NUM_THREADS}, got {threads}")
     threads_before = numba.get_num_threads()
@@ -188,7 +201,8 @@ def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, d
                 run = partial(run, network)
             result = run(t_stop, state=state, progress=progress,
                          extra_edges=None if recorder is None else recorder.times(t_stop),
-                         on_window=None if recorder is None else recorder, work_limit=work_limit)
+                         on_window=None if recorder is None else recorder, work_limit=work_limit,
+                         replay=replay)
             n_threads = numba.get_num_threads()
         finally:
             numba.set_num_threads(threads_before)
@@ -202,6 +216,11 @@ def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, d
     settings = dict(settings, threads=n_threads)
     if auto_scale and hasattr(kernel, "scale_used"):
         settings["scale_used"] = kernel.scale_used
+    meta = _meta(scen, network, t_stop)
+    if replay is not None:
+        settings["open_loop"] = True
+        meta["open_loop_raster"] = dict(sha256=replay.digest, spikes=replay.n_spikes,
+                                        source=replay.source)
     cost = dict(result.counters, wall_s=result.wall_s, cpu_s=cpu_s, compile_s=compile_s,
                 spikes=int(len(spikes)),
                 cell_steps_per_s=result.counters["steps"] / result.wall_s if result.wall_s > 0 else None)
@@ -209,7 +228,7 @@ def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, d
         spikes=spikes, n_cells=network.n_cells, t_start_ms=0.0, t_stop_ms=result.t_reached_ms,
         group_names=tuple(network.group_names), group_first=np.asarray(network.group_first),
         settings=settings, status=result.status, message=result.message, cost=cost,
-        meta=_meta(scen, network, t_stop),
+        meta=meta,
         traces=None if recorder is None else recorder.table(),
         step_trace=kernel.step_trace() if record_steps and hasattr(kernel, "step_trace") else None,
     )
@@ -255,6 +274,42 @@ class CompileTimer:
     def __exit__(self, *exc):
         self._install.__exit__(*exc)
         return False
+
+
+def replay_raster(source, network, t_stop_ms: float) -> ReplayRaster:
+    """The spikes an open-loop run of ``network`` up to ``t_stop_ms`` replays.
+
+    Parameters
+    ----------
+    source : Run, (cell, time_ms) pair of arrays, or path
+        A run, two arrays, a run folder, or an NPZ or CSV raster file.
+    network : Network
+    t_stop_ms : float
+        End of the run (ms); spikes at or after it, and before 0, are left out.
+
+    Raises
+    ------
+    InputError
+        An unreadable source, a raster of another network size, cell ids beyond the network.
+    """
+    from .analysis.rasters import Raster, as_raster
+
+    n = network.n_cells
+    if isinstance(source, (tuple, list)):
+        if len(source) != 2:
+            raise InputError(f"open_loop: give a run, a (cell, time_ms) pair of arrays or a raster "
+                             f"file, got a sequence of {len(source)}")
+        raster = Raster.from_arrays(source[0], source[1], n_cells=n, t_start_ms=0.0,
+                                    t_stop_ms=t_stop_ms, source="open_loop")
+        return ReplayRaster(raster.cell, raster.time_ms, n, source="<arrays>")
+    if isinstance(source, Run) and source.n_cells != n:
+        raise InputError(f"open_loop: the run replayed has {source.n_cells} cells; the network "
+                         f"has {n}")
+    raster = as_raster(source, t_start_ms=0.0, t_stop_ms=t_stop_ms)
+    if raster.n_cells > n:
+        raise InputError(f"{raster.source}: the raster has {raster.n_cells} cells; the network "
+                         f"has {n}")
+    return ReplayRaster(raster.cell, raster.time_ms, n, source=raster.source)
 
 
 def warm_up(kernel, state, network=None) -> float:

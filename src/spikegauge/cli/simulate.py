@@ -25,6 +25,9 @@ from .main import cli, progress_bar
               help="Stop the run at this time (ms), earlier than the scenario's duration_ms "
                    "(default: the whole duration). Drive and network are the same as for the whole run.")
 @click.option("--threads", type=int, help="Number of threads (results do not depend on it).")
+@click.option("--open-loop", "open_loop", type=click.Path(),
+              help="Open loop: replay this raster (a run folder, or an NPZ or CSV file of cell, "
+                   "time_ms) as the recurrent input instead of the network's own spikes.")
 @click.option("--csv", "write_csv", is_flag=True, help="Also write spikes.csv.")
 @click.option("--sonata", "write_sonata", is_flag=True, help="Also write spikes.h5 (a SONATA spike file).")
 @click.option("--max-memory-gb", type=float,
@@ -32,7 +35,7 @@ from .main import cli, progress_bar
 @click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False), help="Run folder to write.")
 @click.option("--quiet", is_flag=True, help="No progress bar.")
 def simulate(scenario, strategy, stepper, dt_ms, crossing, delivery, rtol, atol, auto_scale, t_stop_ms,
-             threads, write_csv, write_sonata, max_memory_gb, out_dir, quiet):
+             threads, open_loop, write_csv, write_sonata, max_memory_gb, out_dir, quiet):
     """Integrate SCENARIO once and write spikes.npz and run.json to --out."""
     from ..scenario import load_scenario
     from ..simulation import resolve_settings, simulate as run_simulation
@@ -54,7 +57,7 @@ def simulate(scenario, strategy, stepper, dt_ms, crossing, delivery, rtol, atol,
             done[0] = now
 
         run = run_simulation(scen, auto_scale=auto_scale, threads=threads, progress=progress,
-                             t_stop_ms=t_stop_ms, **options)
+                             t_stop_ms=t_stop_ms, open_loop=open_loop, **options)
     out = run.save(out_dir)
     written = ["spikes.npz", "run.json"]
     if write_csv:
@@ -71,6 +74,10 @@ def simulate(scenario, strategy, stepper, dt_ms, crossing, delivery, rtol, atol,
     if run.message:
         click.echo(run.message)
     click.echo(f"setting: {desc}")
+    replayed = run.meta.get("open_loop_raster")
+    if replayed is not None:
+        click.echo(f"open loop: replayed {replayed['spikes']} spikes of {replayed['source']} "
+                   f"(sha256 {replayed['sha256'][:16]})")
     c = run.cost
     click.echo(f"cost: {c['steps']} cell-steps, {c['rhs_evals']} rhs evaluations, "
                f"{c['arrivals']} synaptic events, loop {c['wall_s']:.3f} s")

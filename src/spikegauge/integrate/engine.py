@@ -10,7 +10,9 @@ strategies:
   walking the CSR connectivity; handed out window by window.
 * :func:`run_windows`: gathers each window's arrivals (network + drive), sorts
   them per cell in the fixed order (time, source, synapse), calls the
-  strategy's window kernel, collects spikes in cell order and schedules them.
+  strategy's window kernel, collects spikes in cell order and schedules them
+  (open loop: schedules a replayed raster's spikes of the window instead, see
+  :mod:`spikegauge.integrate.replay`).
 
 A strategy supplies a *window kernel*: an object with
 
@@ -462,7 +464,7 @@ def default_boundaries(d_min_ms: float, t_stop_ms: float) -> np.ndarray:
 
 def run_windows(network, kernel, t_stop_ms: float, state: CellState | None = None,
                 progress=None, spike_capacity: int = 8, on_window=None,
-                extra_edges=None, work_limit=None) -> WindowLoopResult:
+                extra_edges=None, work_limit=None, replay=None) -> WindowLoopResult:
     """Integrate ``network`` from 0 to ``t_stop_ms`` with a strategy's window kernel.
 
     Parameters
@@ -483,6 +485,10 @@ def run_windows(network, kernel, t_stop_ms: float, state: CellState | None = Non
     work_limit : float or None
         Stop at the end of the first window after which the work (right-hand-side
         evaluations plus Newton iterations) exceeds this; status ``"stopped"``.
+    replay : ReplayRaster or None
+        Open loop (:mod:`spikegauge.integrate.replay`): after each window the
+        raster's spikes up to its end become the arrivals, not the window's
+        own spikes (which are still recorded).
 
     Returns
     -------
@@ -502,6 +508,7 @@ def run_windows(network, kernel, t_stop_ms: float, state: CellState | None = Non
         edges = edges[np.concatenate([[True], np.diff(edges) > EDGE_MERGE_MS])]
     queue = ArrivalQueue(network, kernel.effective_time)
     drive = DriveFeed(network, kernel.effective_time)
+    feed = replay.feed() if replay is not None else None
     counters = np.zeros((n, N_COUNTERS), dtype=np.int64)
     out_cells, out_times = [], []
     status, message, t_reached = "ok", "", float(edges[-1])
@@ -542,7 +549,12 @@ def run_windows(network, kernel, t_stop_ms: float, state: CellState | None = Non
             break
         out_cells.append(cells)
         out_times.append(times)
-        queue.push(cells, times)
+        if feed is None:
+            queue.push(cells, times)
+        else:
+            # Open loop: the replayed raster's spikes of this window take the place of the
+            # window's own, pushed in the same (cell, time) order.
+            queue.push(*feed.take(t1))
         if on_window is not None:
             on_window(t0, t1, state)
         if progress is not None:

@@ -339,16 +339,18 @@ class FixedStepKernel:
         return grid_time(time_ms, self.dt) if self.grid else time_ms
 
     def run(self, network, t_stop_ms, state, progress=None, on_window=None, extra_edges=None,
-            work_limit=None):
+            work_limit=None, replay=None):
         """Integrate the whole run: grid delivery in the block loop of
-        :mod:`spikegauge.integrate.fixed_block`, exact delivery window by window."""
+        :mod:`spikegauge.integrate.fixed_block`, exact delivery window by window;
+        ``replay`` (a :class:`~spikegauge.integrate.replay.ReplayRaster`) makes it open loop."""
         if self.grid:
             from .fixed_block import run_grid
             return run_grid(self, network, t_stop_ms, state, progress, on_window, extra_edges,
-                            work_limit=work_limit)
+                            work_limit=work_limit, replay=replay)
         from .engine import run_windows
         return run_windows(network, self, t_stop_ms, state=state, progress=progress,
-                           on_window=on_window, extra_edges=extra_edges, work_limit=work_limit)
+                           on_window=on_window, extra_edges=extra_edges, work_limit=work_limit,
+                           replay=replay)
 
     def warm_up(self, network, state):
         """Compile (or load) the kernels of this setting without advancing ``state``."""

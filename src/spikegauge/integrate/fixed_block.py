@@ -52,11 +52,12 @@ MAX_WINDOW_SPIKE_SLOTS = 1 << 21
 
 @jit
 def _scatter(c_lo, c_hi, n_cells, n0, n_total, dt, mask,
-             n_pend, pend_step, pend_cell, pend_time,
+             p_lo, p_hi, pend_step, pend_cell, pend_time,
              syn_ptr, syn_target, syn_steps, syn_delay, syn_offset, syn_weight,
              d_lo, d_hi, drv_step, drv_cell, drv_offset, drv_weight, ring):
     """Add pending spikes' and drive events' weights to the ring columns of cells c_lo..c_hi-1.
 
+    The pending spikes are ``pend_*[p_lo:p_hi]`` (step of emission, cell, time).
     ``ring`` is (slots, planes x cells); ``syn_offset`` / ``drv_offset`` the column
     (plane x n_cells + target) of each synapse / drive event. Returns (arrivals
     added, late arrivals); a late arrival (due before step ``n0``) would mean a
@@ -65,7 +66,7 @@ def _scatter(c_lo, c_hi, n_cells, n0, n_total, dt, mask,
     added = 0
     late = 0
     part = c_lo > 0 or c_hi < n_cells
-    for k in range(n_pend):
+    for k in range(p_lo, p_hi):
         src = pend_cell[k]
         st = pend_step[k]
         ts = pend_time[k]
@@ -342,6 +343,7 @@ def _run_windows(w_edges, n_total, t_stop, dt, mask, stepper, crossing,
                  syn_ptr, syn_target, syn_steps, syn_delay, syn_offset, syn_weight,
                  drv_step, drv_cell, drv_offset, drv_weight, drv_ptr,
                  pend_n, pend_step, pend_cell, pend_time,
+                 replay, rp_step, rp_cell, rp_time, rp_at,
                  buf_step, buf_cell, buf_time, chunk_cap, buf_n, late,
                  out_step, out_cell, out_time, counters,
                  X, XF, clamp, S1, SJ, spk1, ncount, cnt1):
@@ -349,7 +351,10 @@ def _run_windows(w_edges, n_total, t_stop, dt, mask, stepper, crossing,
 
     Chunk ``c`` owns tiles ``chunk_tiles[c]..chunk_tiles[c+1]-1`` and their cells.
     Spikes of every window go to ``out_*`` (from 0) and become the pending
-    spikes of the next. Stops early, before a window whose spikes might not fit
+    spikes of the next. Open loop (``replay``), the spikes scattered at the
+    start of a window are instead ``rp_*[rp_at[0]:]`` emitted in earlier steps
+    (sorted by step, cell, time, as the window's own would be), and ``rp_at[0]``
+    moves past them. Stops early, before a window whose spikes might not fit
     in ``out_*``, after a window in which a cell diverged, or when an arrival
     came late (``late[c] > 0``).
 
@@ -363,6 +368,17 @@ def _run_windows(w_edges, n_total, t_stop, dt, mask, stepper, crossing,
             return w, n_out
         n0 = w_edges[w]
         n1 = w_edges[w + 1]
+        if replay:
+            p_lo = rp_at[0]
+            p_hi = p_lo
+            while p_hi < rp_step.size and rp_step[p_hi] < n0:
+                p_hi += 1
+            rp_at[0] = p_hi
+            s_step, s_cell, s_time = rp_step, rp_cell, rp_time
+        else:
+            p_lo = 0
+            p_hi = pend_n[0]
+            s_step, s_cell, s_time = pend_step, pend_cell, pend_time
         for c in numba.prange(n_chunks):
             t_first = chunk_tiles[c]
             t_last = chunk_tiles[c + 1]
@@ -370,7 +386,7 @@ def _run_windows(w_edges, n_total, t_stop, dt, mask, stepper, crossing,
                 buf_n[c] = 0
                 continue
             added, n_late = _scatter(tile_lo[t_first], tile_hi[t_last - 1], Y.shape[1], n0,
-                                     n_total, dt, mask, pend_n[0], pend_step, pend_cell, pend_time,
+                                     n_total, dt, mask, p_lo, p_hi, s_step, s_cell, s_time,
                                      syn_ptr, syn_target, syn_steps, syn_delay, syn_offset,
                                      syn_weight, drv_ptr[w], drv_ptr[w + 1],
                                      drv_step, drv_cell, drv_offset, drv_weight, ring)
@@ -431,10 +447,11 @@ class GridRun:
     Built from a :class:`~spikegauge.integrate.engine.CellState` (state and
     parameters become structure-of-arrays copies; :meth:`write_back` returns
     them) and the network's synapses (delays as whole steps for spikes on the
-    grid; receptors as ring planes).
+    grid; receptors as ring planes). ``replay``, a
+    :class:`~spikegauge.integrate.replay.ReplayRaster`, makes the run open loop.
     """
 
-    def __init__(self, network, state, dt, stepper, crossing, t_stop, tile=TILE):
+    def __init__(self, network, state, dt, stepper, crossing, t_stop, tile=TILE, replay=None):
         n = network.n_cells
         self.network = network
         self.state = state
@@ -522,6 +539,15 @@ class GridRun:
         self.ncount = np.zeros((k, 1), dtype=np.int64)
         self.cnt1 = np.zeros((k, N_COUNTERS), dtype=np.int64)
         self.out_cap = 4 * k * self.chunk_cap
+        # Open loop: the replayed spikes by step of emission, and the cursor of the next one.
+        self.replay = replay is not None
+        if self.replay:
+            self.rp_step, self.rp_cell, self.rp_time = replay.by_step(self.dt)
+        else:
+            self.rp_step = np.empty(0, dtype=np.int64)
+            self.rp_cell = np.empty(0, dtype=np.int64)
+            self.rp_time = np.empty(0)
+        self.rp_at = np.zeros(1, dtype=np.int64)
 
     def advance(self, n0, n1, drive):
         """Run steps n0..n1-1 (window edges inside); returns (cells, times, status) of the spikes.
@@ -549,6 +575,7 @@ class GridRun:
                 net.syn_ptr, net.syn_target, self.syn_steps, net.syn_delay_ms, self.syn_offset,
                 net.syn_weight, d_step, d_cell, d_offset, d_weight, drv_ptr,
                 self.pend_n, self.pend_step, self.pend_cell, self.pend_time,
+                self.replay, self.rp_step, self.rp_cell, self.rp_time, self.rp_at,
                 self.buf_step, self.buf_cell, self.buf_time, self.chunk_cap, self.buf_n, self.late,
                 out_step, out_cell, out_time, self.counters,
                 self.X, self.XF, self.clamp, self.S1, self.SJ, self.spk1,
@@ -576,7 +603,7 @@ SEGMENTS = 50
 
 
 def run_grid(kernel, network, t_stop_ms, state, progress=None, on_window=None, extra_edges=None,
-             tile=TILE, work_limit=None):
+             tile=TILE, work_limit=None, replay=None):
     """Integrate with the fixed step and grid delivery; returns a WindowLoopResult.
 
     ``kernel`` is the :class:`~spikegauge.integrate.fixed.FixedStepKernel` of the
@@ -585,6 +612,8 @@ def run_grid(kernel, network, t_stop_ms, state, progress=None, on_window=None, e
     the end of every piece, and pieces end at every extra edge). ``tile``: cells
     per block (tests use small blocks to spread small networks over threads).
     ``work_limit``: as in ``run_windows``, checked at the end of every piece.
+    ``replay``: a :class:`~spikegauge.integrate.replay.ReplayRaster` to replay
+    as the recurrent input (open loop), or None.
     """
     import time as _time
 
@@ -592,7 +621,8 @@ def run_grid(kernel, network, t_stop_ms, state, progress=None, on_window=None, e
     from ..network.drive import DriveStream
     from .engine import COUNTER_NAMES, WindowLoopResult, past_work_limit, work_limit_message
 
-    run = GridRun(network, state, kernel.dt, kernel.stepper, kernel.crossing, t_stop_ms, tile)
+    run = GridRun(network, state, kernel.dt, kernel.stepper, kernel.crossing, t_stop_ms, tile,
+                  replay)
     n_total = run.n_total
     piece = max(run.steps_per_window, int(math.ceil(n_total / SEGMENTS)))
     cuts = set(range(0, n_total, piece)) | {n_total}
