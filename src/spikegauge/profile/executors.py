@@ -57,7 +57,9 @@ def execute_task(task: dict) -> Run:
         ``settings`` (resolved), ``probe`` (dict or None), ``record_steps``
         (list of cells or None), ``threads`` (int or None), ``timed`` (repeat
         the run until its CPU time is known, :func:`.cost.timed_run`), ``work_limit``
-        and ``t_stop_ms`` (None or a number, passed to ``simulate``).
+        and ``t_stop_ms`` (None or a number, passed to ``simulate``), ``open_loop`` (the
+        reference's digest) with ``open_loop_raster`` (its ``cell`` and ``time_ms``
+        lists): an open-loop run replaying them.
     """
     from ..simulation import simulate
     from .reference import apply_probe
@@ -73,7 +75,7 @@ def execute_task(task: dict) -> Run:
                                dt_ms=s.get("dt_ms"), crossing=s.get("crossing"), delivery=s.get("delivery"),
                                rtol=s.get("rtol"), atol=s.get("atol"), threads=task.get("threads"),
                                record_steps=task.get("record_steps"), work_limit=task.get("work_limit"),
-                               t_stop_ms=task.get("t_stop_ms"))
+                               t_stop_ms=task.get("t_stop_ms"), open_loop=_replayed(task))
             run = timed_run(run_once) if task.get("timed") else run_once()
         except Exception as exc:  # a failing point is a row, not a crash of the sweep
             run = failed_run(net, task, error_message(exc))
@@ -81,6 +83,14 @@ def execute_task(task: dict) -> Run:
                     seed=int(task["seed"]),
                     probe=task.get("probe"), scenario_name=task.get("scenario_name"))
     return run
+
+
+def _replayed(task: dict):
+    """The (cell, time_ms) arrays an open-loop point replays, or None."""
+    raster = task.get("open_loop_raster")
+    if raster is None:
+        return None
+    return np.asarray(raster["cell"], dtype=np.int64), np.asarray(raster["time_ms"], dtype=np.float64)
 
 
 _ANSI = re.compile(r"\x1b\[[0-9;]*m")

@@ -29,10 +29,11 @@ ERROR_MEASURES = {
     "mismatch": "target_mismatch_fraction",
     "van-rossum": "van_rossum_mean",
     "rate": "rate_error_rms_hz",
+    "open-loop": "open_loop_shift_rms_ms",
 }
 """Selectable error measures: name -> results.csv column (per-spike ones within the
-judged window; van Rossum and the rate error over the whole run, which stay
-meaningful past the sensitivity horizon)."""
+evaluation window; van Rossum, the rate error and the open-loop jitter over the whole
+run, which stay meaningful past the divergence time)."""
 COST_MEASURES = {"cpu": "cpu_s", "work": "work"}
 """Selectable costs: name -> results.csv column."""
 REFERENCE_FLOOR_FACTOR = 3.0

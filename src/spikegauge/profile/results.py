@@ -5,9 +5,11 @@ run (every figure of :func:`spikegauge.analysis.compare`, including the
 population statistics that still mean something past the sensitivity
 horizon) and over the judged window, from the start to the median horizon of
 the target-sized probe, where per-spike figures are meaningful; those carry
-the prefix ``target_``. A point meets the target when its status is ok and,
-within the judged window, its RMS jitter and its missed + extra fraction are
-at most the target's.
+the prefix ``target_``. Its open-loop twin is compared over the whole run
+(:mod:`.open_loop`). A point meets the target when its status is ok and its
+RMS jitter and (missed + extra) per reference spike are at most the target's
+both ways: closed loop within the evaluation window, open loop over the whole
+run.
 
 ``results.csv`` columns (one row per point, in sweep order, seed by seed):
 ``point, seed, label, strategy, stepper, dt_ms, crossing, delivery, rtol,
@@ -17,7 +19,11 @@ thread, compilation excluded, the least of its repeats), cpu_spread ((largest - 
 least over the repeats), cpu_repeats, wall_s (the integration loop's wall time),
 compile_s, work (rhs_evals + newton_iters), steps_per_cell_ms, arrivals_per_ms``; target ``target_window_ms,
 target_shift_rms_ms, target_shift_max_abs_ms, target_mismatch_fraction,
-target_missed_fraction, target_extra_fraction, meets_target``; then every
+target_missed_fraction, target_extra_fraction``; open loop over the whole run
+(the point's twin replaying the reference's raster as recurrent input:
+:func:`spikegauge.simulate` ``open_loop``) ``open_loop_status, open_loop_shift_rms_ms,
+open_loop_shift_max_abs_ms, open_loop_mismatch_fraction, meets_closed_loop,
+meets_open_loop, meets_target`` (both); then every
 key of the comparison summary (see :func:`spikegauge.analysis.compare`).
 Only the time columns (:data:`TIME_COLUMNS`, and ``timing`` in ``profile.json``)
 depend on the machine.
@@ -36,6 +42,8 @@ from ..analysis.comparison import jsonable
 from ..runs import atomic_path
 from .reference import ladder_summary, probe_horizon, reference_uncertainty
 from .sweep import setting_label
+from .front import REFERENCE_FLOOR_FACTOR
+from .open_loop import open_loop_findings
 from .verdict import conclusions
 
 COMPARE_OPTIONS = dict(match_window_ms=2.0, tau_ms=5.0)
@@ -93,8 +101,13 @@ def meets_target(run, doc, spec) -> bool:
                 and (jitter <= spec.target_jitter_ms or no_spikes))
 
 
-def point_row(k, task, run, doc, window, spec, entry=None) -> dict:
-    """One row of ``results.csv`` (``entry``: the point's :class:`.rounds.Entry`)."""
+OPEN_LOOP_KEYS = ("shift_rms_ms", "shift_max_abs_ms", "mismatch_fraction")
+"""Open-loop figures of a point, over the whole run (columns ``open_loop_*``)."""
+
+
+def point_row(k, task, run, doc, window, spec, entry=None, open_run=None, open_doc=None) -> dict:
+    """One row of ``results.csv`` (``entry``: the point's :class:`.rounds.Entry`; ``open_run``
+    and ``open_doc``: its open-loop run and comparison)."""
     s = task["settings"]
     row = dict(point=k, seed=task["seed"], label=setting_label(s))
     row.update({c: s.get(c) for c in SETTING_COLUMNS})
@@ -118,6 +131,16 @@ def point_row(k, task, run, doc, window, spec, entry=None) -> dict:
     for key in TARGET_KEYS:
         row[f"target_{key}"] = _nan(target.get(key))
     row["meets_target"] = meets_target(run, doc, spec)
+    if open_run is not None:
+        target = open_doc["target"] or {}
+        row["open_loop_status"] = open_run.status
+        for key in OPEN_LOOP_KEYS:
+            row[f"open_loop_{key}"] = _nan(target.get(key))
+        # the per-spike target holds both ways: closed loop before the divergence time,
+        # open loop over the whole run
+        row["meets_closed_loop"] = row["meets_target"]
+        row["meets_open_loop"] = meets_target(open_run, open_doc, spec)
+        row["meets_target"] = row["meets_closed_loop"] and row["meets_open_loop"]
     summary = (doc["comparison"] or {}).get("summary", {})
     for key, v in summary.items():
         if key not in ("n_cells", "t_start_ms", "t_stop_ms") and key not in row:
@@ -153,7 +176,7 @@ def ladder_doc(ref, probe_tasks, by_digest, seed) -> dict:
 def evaluate(spec, store, ref_tasks, ref_runs, ladders, points, by_digest, out_dir, extra=None) -> dict:
     """Compare every point with its reference; write ``results.csv``; return the profile document.
 
-    ``points[seed]`` lists ``(entry, task)`` of the seed's sweep in table order;
+    ``points[seed]`` lists ``(entry, task, open_loop_task)`` of the seed's sweep in table order;
     ``ladders[seed]`` is :func:`ladder_doc`'s; ``extra`` is merged into the document.
     """
     references, rows, listed = [], [], []
@@ -162,15 +185,23 @@ def evaluate(spec, store, ref_tasks, ref_runs, ladders, points, by_digest, out_d
         ref, ref_digest = ref_runs[seed][-1], ref_tasks[seed][-1]["digest"]
         references.append(reference_doc(spec, seed, ref_tasks, ref_runs))
         window = ladders[seed]["judged_window_ms"]
-        for entry, task in points[seed]:
-            run = by_digest[task["digest"]]
+        for entry, task, twin in points[seed]:
+            run, open_run = by_digest[task["digest"]], by_digest[twin["digest"]]
             doc = _comparison_doc(store, task["digest"], run, ref, ref_digest, window, COMPARE_OPTIONS)
-            rows.append(point_row(k, task, run, doc, window, spec, entry))
+            open_doc = _comparison_doc(store, twin["digest"], open_run, ref, ref_digest,
+                                       ref.t_stop_ms - ref.t_start_ms, COMPARE_OPTIONS)
+            rows.append(point_row(k, task, run, doc, window, spec, entry, open_run, open_doc))
             listed.append(dict(point=k, seed=seed, label=setting_label(task["settings"]),
                                digest=task["digest"], status=run.status, message=run.message))
             k += 1
     table = pd.DataFrame(rows)
     write_results_csv(out_dir, table)
+    seed0 = spec.seeds[0]
+    open_runs = {row["point"]: by_digest[twin["digest"]]
+                 for row, (_, _, twin) in zip(rows, points[seed0])}
+    findings = open_loop_findings(table[table["seed"] == seed0], open_runs, ref_runs[seed0][-1],
+                                  references[0]["uncertainty"]["shift_rms_ms"], REFERENCE_FLOOR_FACTOR,
+                                  **COMPARE_OPTIONS)
     scen = spec.scenario
     n_settings = len(points[spec.seeds[0]])
     doc = dict(
@@ -185,6 +216,7 @@ def evaluate(spec, store, ref_tasks, ref_runs, ladders, points, by_digest, out_d
         references=references,
         ladder=[ladders[s] for s in spec.seeds],
         points=listed,
+        open_loop=findings,
     )
     doc.update(extra or {})
     doc.update(conclusions(table, doc))

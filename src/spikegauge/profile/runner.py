@@ -96,13 +96,17 @@ def prepare(scenario_path, *, sweep_file=None, quick=False, seeds=1, target_jitt
 
 
 def _task(spec: ProfileSpec, seed: int, settings: dict, probe=None, record_steps=None, timed=False,
-          work_limit=None, t_stop_ms=None):
+          work_limit=None, t_stop_ms=None, open_loop=None):
     t = dict(scenario_text=spec.scenario_text, scenario_source=str(spec.scenario.path or ""),
              scenario_digest=spec.scenario_digest, scenario_name=spec.scenario.name, seed=int(seed),
              settings=dict(settings), probe=probe, record_steps=record_steps, version=__version__,
              threads=THREADS, timing=COST_METHOD if timed else None, timed=timed,
              work_limit=None if work_limit is None else float(work_limit),
-             t_stop_ms=None if t_stop_ms is None else float(t_stop_ms))
+             t_stop_ms=None if t_stop_ms is None else float(t_stop_ms),
+             open_loop=None if open_loop is None else open_loop[0])
+    if open_loop is not None:  # the reference's digest identifies the point; its spikes travel along
+        t["open_loop_raster"] = dict(cell=open_loop[1].spikes["cell"].tolist(),
+                                     time_ms=open_loop[1].spikes["time_ms"].tolist())
     if not t["scenario_source"]:
         t["scenario_source"] = None
     t["digest"] = point_digest(t)
@@ -115,6 +119,8 @@ def _label(task) -> str:
         return f"seed {task['seed']} reference perturbed ({p['kind']}, cell {p['cell']})"
     if task.get("t_stop_ms") is not None:
         return f"seed {task['seed']} {setting_label(task['settings'])} (pilot, {task['t_stop_ms']:g} ms)"
+    if task.get("open_loop") is not None:
+        return f"seed {task['seed']} {setting_label(task['settings'])} (open loop)"
     return f"seed {task['seed']} {setting_label(task['settings'])}"
 
 
@@ -237,13 +243,15 @@ def run_profile(scenario_path, out_dir, *, sweep_file=None, quick=False, seeds=1
                     task = _task(spec, s, pilot.settings, t_stop_ms=pilot.t_stop_ms)
                     pilots[s].append((pilot, task))
                     todo.append(task)
+                reference = (ref_tasks[s][-1]["digest"], ref_runs[s][-1])
                 for e in entries:
                     task = _task(spec, s, e.settings, timed=True, work_limit=e.work_limit,
                                  record_steps=step_trace_cells(networks[s].n_cells)
                                  if e.settings["strategy"] != "fixed" else None)
-                    points[s][id(e)] = task
-                    round_entries.append((s, e, task))
-                    todo.append(task)
+                    twin = _task(spec, s, e.settings, work_limit=e.work_limit, open_loop=reference)
+                    points[s][id(e)] = (task, twin)
+                    round_entries.append((s, e, task, twin))
+                    todo += [task, twin]
             if not todo:
                 break
             progress.grow_to(progress.done + len(todo) + _unscheduled(plans))
@@ -257,12 +265,16 @@ def run_profile(scenario_path, out_dir, *, sweep_file=None, quick=False, seeds=1
                         run = by_digest[task["digest"]]
                         pilot.status, pilot.t_reached_ms = run.status, run.t_stop_ms
                         pilot.work = run.cost.get("rhs_evals", math.nan) + run.cost.get("newton_iters", 0)
-            for s, e, task in round_entries:
-                run = by_digest[task["digest"]]
-                doc = _comparison_doc(store, task["digest"], run, ref_runs[s][-1], ref_tasks[s][-1]["digest"],
+            for s, e, task, twin in round_entries:
+                ref, ref_digest = ref_runs[s][-1], ref_tasks[s][-1]["digest"]
+                run, open_run = by_digest[task["digest"]], by_digest[twin["digest"]]
+                doc = _comparison_doc(store, task["digest"], run, ref, ref_digest,
                                       ladders[s]["judged_window_ms"], COMPARE_OPTIONS)
+                open_doc = _comparison_doc(store, twin["digest"], open_run, ref, ref_digest,
+                                           ref.t_stop_ms - ref.t_start_ms, COMPARE_OPTIONS)
                 plans[s].record(e, run.status, run.cost.get("rhs_evals", math.nan)
-                                + run.cost.get("newton_iters", 0), meets_target(run, doc, spec))
+                                + run.cost.get("newton_iters", 0),
+                                meets_target(run, doc, spec) and meets_target(open_run, open_doc, spec))
             for s in spec.seeds:
                 plans[s].close_round()
     finally:
@@ -272,11 +284,15 @@ def run_profile(scenario_path, out_dir, *, sweep_file=None, quick=False, seeds=1
     for s in spec.seeds:
         rows = []
         for e in plans[s].entries:
-            task = points[s].get(id(e))
-            if task is None:  # skipped: never run, its prediction is the row
+            pair = points[s].get(id(e))
+            if pair is None:  # skipped: never run, its prediction is the row
                 task = _task(spec, s, e.settings, timed=True, work_limit=e.work_limit)
-                by_digest[task["digest"]] = skipped_run(networks[s], task, e.message)
-            rows.append((e, task))
+                twin = _task(spec, s, e.settings, work_limit=e.work_limit,
+                             open_loop=(ref_tasks[s][-1]["digest"], ref_runs[s][-1]))
+                for t in (task, twin):
+                    by_digest[t["digest"]] = skipped_run(networks[s], t, e.message)
+                pair = (task, twin)
+            rows.append((e, *pair))
         table_points[s] = rows
     n_runs = batch.total_runs
     extra = dict(pilots=[dict(seed=s, label=setting_label(p.settings), t_stop_ms=p.t_stop_ms,

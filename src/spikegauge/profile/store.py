@@ -4,7 +4,7 @@ A point is one run of the profile: a sweep setting, a reference run or a
 ladder probe, for one seed. Its digest is the SHA-256 of the scenario
 digest, the resolved settings, the seed, the probe (if any), the recorded
 step-trace cells, the package version, how its cost is measured, its work
-limit and its stop time (a pilot run), so a point is found again exactly
+limit, its stop time (a pilot run) and the reference it replays (open loop), so a point is found again exactly
 when rerunning it would give the same run.
 
 A point's files (``spikes.npz``, ``run.json``, ``steps.csv`` if any) are
@@ -28,7 +28,8 @@ from ..runs import atomic_path, load_run
 def point_digest(task: dict) -> str:
     """Digest of what determines a point's run (see the module docstring)."""
     key = {k: task.get(k) for k in ("scenario_digest", "settings", "seed", "probe",
-                                    "record_steps", "version", "timing", "work_limit", "t_stop_ms")}
+                                    "record_steps", "version", "timing", "work_limit", "t_stop_ms",
+                                    "open_loop")}
     text = json.dumps(key, sort_keys=True, separators=(",", ":"))
     return hashlib.sha256(text.encode()).hexdigest()[:24]
 

@@ -20,6 +20,14 @@ def profile_text(doc: dict) -> str:
         if secs:
             lines.append(f"  CPU seconds on one thread, cheapest setting of each strategy meeting the target: "
                          f"{'; '.join(secs)}.")
+        rec = v.get("recommended")
+        if rec is not None:
+            row = next((p for p in doc.get("points", []) if p["point"] == rec["point"]), None)
+            ol = rec.get("open_loop_shift_rms_ms")
+            if row is not None and ol is not None:
+                lines.append(f"  Open loop over the whole run (reference raster as input): RMS jitter "
+                             f"{ol:.3g} ms, (missed + extra) per reference spike "
+                             f"{rec.get('open_loop_mismatch_fraction', float('nan')):.3g}.")
     sc = doc["scenario"]
     sw = doc["sweep"]
     n_seeds = len(doc["seeds"])

@@ -71,7 +71,8 @@ def cheapest_meeting(rows: pd.DataFrame, target_jitter_ms: float, target_mismatc
 
 _BRIEF = ("point", "label", "strategy", "stepper", "dt_ms", "crossing", "delivery", "rtol", "cpu_s",
           "cpu_spread", "work", "rhs_evals", "steps", "arrivals", "steps_per_cell_ms", "arrivals_per_ms",
-          "target_shift_rms_ms", "target_mismatch_fraction", "margin", "tied_with")
+          "target_shift_rms_ms", "target_mismatch_fraction", "open_loop_shift_rms_ms",
+          "open_loop_mismatch_fraction", "margin", "tied_with")
 
 
 def _brief(row: dict) -> dict:

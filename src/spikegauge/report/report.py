@@ -179,6 +179,32 @@ def build_report(profile_dir) -> list[Path]:
           "a step costs besides them (error control, dense output, crossing search, event handling), "
           "which is why the verdict ranks by CPU seconds.")
 
+    rep.h(2, "Open loop over the whole run")
+    rep.p("Past the divergence time two runs of a chaotic network are different realisations of the "
+          "same activity, so closed-loop spike-for-spike error says nothing there. Each setting was "
+          "therefore also run open loop: the reference's raster drives every synapse instead of the "
+          "network's own spikes, so its spike-time error is the integration error of the setting over "
+          "the whole run. It is a lower bound on the closed-loop error (it leaves out what a cell "
+          "inherits from its inputs); the target is judged both ways.")
+    if rec:
+        r = by_point.loc[rec["point"]]
+        rep.p(f"Recommended setting open loop: RMS jitter {fmt(r.get('open_loop_shift_rms_ms'))} ms, "
+              f"(missed + extra) per reference spike {fmt(r.get('open_loop_mismatch_fraction'))}.")
+    ol = doc.get("open_loop") or {}
+    if ol.get("fits"):
+        rep.table(["family", "slope (open loop)", "spikes matched at every setting", "expected", "source"],
+                  [[f"{f['strategy']} {f['stepper']} {f['crossing']}" + (
+                      f"/{f['delivery']}" if isinstance(f["delivery"], str) else ""),
+                    f"{fmt(f['slope'])} ± {fmt(f['stderr'])} ({f['n']} points)", fmt(f["spikes"]),
+                    *_expected_order(f)] for f in ol["fits"]])
+    amplifying = [m for m in ol.get("mismatching", []) if m["cells"]]
+    if amplifying:
+        rep.p("Cells that mismatch open loop even at a family's finest setting (their own dynamics "
+              "amplify tiny differences: near-threshold grazes, bistable ranges): " + "; ".join(
+                  f"{m['label']}: {len(m['cells'])} of {m['n_cells']}" for m in amplifying) + ".")
+    else:
+        rep.p("No cell mismatches open loop at the finest setting of any family.")
+
     rep.h(2, "How the sweep ran")
     rep.p(_sweep_story(rows, doc))
     unusual = rows[(rows["origin"] != "sweep") | rows["status"].isin(["stopped", "skipped"])] \
@@ -206,6 +232,8 @@ def build_report(profile_dir) -> list[Path]:
                 pf.plot_front(table, doc, "jitter", "cpu")),
                ("front_work.png", "Work–precision diagram: work against RMS jitter (evaluation window)",
                 pf.plot_front(table, doc, "jitter", "work")),
+               ("front_open_loop.png", "Work–precision diagram, open loop: CPU seconds against RMS "
+                "jitter over the whole run", pf.plot_front(table, doc, "open-loop", "cpu")),
                ("front_mismatch.png", "Work–precision diagram: CPU seconds against (missed + extra) "
                 "per reference spike", pf.plot_front(table, doc, "mismatch", "cpu")),
                ("convergence.png", "Convergence: error against dt and against rtol, fitted slopes",
@@ -295,6 +323,18 @@ def _sweep_story(rows: pd.DataFrame, doc: dict) -> str:
         text += (f" A {fmt(p['t_stop_ms'])} ms pilot of {p['label']} predicted "
                  f"{fmt(p['predicted_work'])} work units for the whole run.")
     return text
+
+
+def _expected_order(f: dict) -> list:
+    """Expected spike-time order of an open-loop fit and its source."""
+    from ..profile.front import FIXED_ORDER_SOURCES
+
+    if f["strategy"] != "fixed":
+        return ["tolerance proportionality", "Higham 1991"]
+    if f["crossing"] == "step" or f["delivery"] == "grid":
+        return ["1", "Hansel et al. 1998 (times quantised to the grid)"]
+    order, source = FIXED_ORDER_SOURCES.get((f["stepper"], f["crossing"]), (float("nan"), "none known"))
+    return [fmt(order), source]
 
 
 def _fit_text(f: dict) -> str:
