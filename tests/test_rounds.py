@@ -144,3 +144,15 @@ def test_the_plan_is_the_same_whatever_order_the_results_of_a_round_are_recorded
             plan.close_round()
         return [(e.settings, e.status, e.round, e.work_limit) for e in plan.entries]
     assert play(False) == play(True)
+
+
+def test_without_a_limit_global_adaptive_waits_for_the_local_adaptive_families():
+    # local adaptive never meets the target, so there is no limit: the global family runs only
+    # once every local setting has run
+    sweep = [_adaptive("local-adaptive", r) for r in (1e-2, 1e-3, 1e-4)] + \
+            [_adaptive("global-adaptive", r) for r in (1e-2, 1e-3)]
+    plan = SweepPlan(sweep, d_min_ms=1.0, duration_ms=100.0)
+    rounds = _play(plan, _with_limit(lambda s: 10.0, lambda s: False), pilot_work=lambda s: 10.0)
+    last_local = max(i for i, r in enumerate(rounds) for s, _ in r if s["strategy"] == "local-adaptive")
+    first_global = min(i for i, r in enumerate(rounds) for s, _ in r if s["strategy"] == "global-adaptive")
+    assert first_global > last_local

@@ -22,7 +22,8 @@ reference, and the next round is planned from what the earlier rounds found:
   whole network, so its step count follows the network's event rate, not the
   tolerance: a short pilot run of the family's loosest setting predicts the
   work of the whole run, and a family whose predicted work alone passes the
-  limit is skipped, the prediction shown.
+  limit is skipped, the prediction shown. While there is no limit yet, a
+  global family waits for the local adaptive families to finish.
 * **Coarse edge.** When a family's coarsest point meets the target, the sweep
   adds a coarser one (dt doubled while it stays within the smallest delay,
   rtol ten times larger up to ``RTOL_MAX``) until the target is missed or the
@@ -193,12 +194,21 @@ class SweepPlan:
                         self._skip(finer, predicted, f"predicted work {predicted:.4g} (from a pilot of "
                                    f"{fam.pilot.t_reached_ms:g} ms) passes the limit {limit:.4g}")
                         picks = coarse[:1]
+                elif self._local_pending():
+                    # no limit yet: the global family waits until the local adaptive families,
+                    # whose steps cost alike per unit of work and which are far cheaper in
+                    # active networks, have met the target or run out of settings
+                    picks = coarse[:1]
             for e in picks:
                 e.round, e.work_limit = self.round, limit
                 e.status = "queued"
                 runs.append(e)
         self.round += 1
         return runs, pilots
+
+    def _local_pending(self) -> bool:
+        return any(e.status in ("pending", "queued") for fam in self.families.values()
+                   if fam.strategy == "local-adaptive" for e in fam.entries)
 
     def pilot_ms(self) -> float:
         return min(self.duration_ms, max(PILOT_FRACTION * self.duration_ms, PILOT_MIN_MS))
