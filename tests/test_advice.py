@@ -7,6 +7,7 @@ import pytest
 from click.testing import CliRunner
 
 import spikegauge.cli.advise  # noqa: F401  (registers the command)
+from spikegauge.profile.verdict import TIE_FRACTION
 import spikegauge.cli.profile  # noqa: F401
 from spikegauge import simulate
 from spikegauge.cli.main import cli
@@ -67,10 +68,32 @@ def test_advise_command_writes_advice(profile_dir):
     a = json.loads((profile_dir / "advice.json").read_text())
     assert a["predicted"]["n_cells"] == 40 and a["run"]["duration_s"] == 1
     assert a["setting"]["strategy"] in ("fixed", "global-adaptive", "local-adaptive")
-    assert a["predicted"]["memory_bytes"] > 0 and a["predicted"]["wall_s"] > 0
+    assert a["predicted"]["memory_bytes"] > 0 and a["predicted"]["cpu_s"] > 0
+    assert a["predicted"]["memory_bytes"] == pytest.approx(sum(a["predicted"]["memory"].values()))
+    # no alternative is predicted cheaper than the recommendation by more than the tie margin
+    assert all(alt["cpu_s"] >= a["predicted"]["cpu_s"] / (1 + TIE_FRACTION) for alt in a["alternatives"])
     # global adaptive grows as N^2: it is never the pick for a larger run when local
     # adaptive meets the target too
     assert a["setting"]["strategy"] != "global-adaptive"
     res = CliRunner().invoke(cli, ["advise", str(profile_dir), "--target-jitter-ms", "1e-12",
                                    "--target-mismatch-frac", "0", "--duration-s", "1"])
     assert res.exit_code == 2 and "no setting of the profile meets" in res.output
+    # the targets and the duration default to the profile's
+    res = CliRunner().invoke(cli, ["advise", str(profile_dir)], catch_exceptions=False)
+    assert res.exit_code == 0, res.output
+    a = json.loads((profile_dir / "advice.json").read_text())
+    doc = json.loads((profile_dir / "profile.json").read_text())
+    assert a["target"] == dict(jitter_ms=doc["target"]["jitter_ms"], mismatch_frac=doc["target"]["mismatch_frac"])
+    assert a["run"]["duration_s"] == doc["scenario"]["duration_ms"] / 1000.0
+
+
+def test_durations_and_memory_are_printed_in_units_a_person_reads():
+    from spikegauge.profile.advice import format_bytes, format_duration, memory_warning
+
+    assert format_duration(42.0) == "42 s" and format_duration(150.0) == "2.5 min"
+    assert format_duration(7200.0) == "2 h" and format_duration(3 * 86400.0) == "3 days"
+    assert format_bytes(76.7e9) == "76.7 GB" and format_bytes(512) == "512 bytes"
+    memory = dict(network_bytes=1e9, spikes_bytes=70e9, events_in_flight_bytes=1e8)
+    warning = memory_warning(memory, available=20e9)
+    assert "71.1 GB" in warning and "20 GB" in warning and "spikes" in warning
+    assert memory_warning(memory, available=100e9) == "" and memory_warning(memory, None) == ""

@@ -24,11 +24,12 @@ new size, so ``random`` pathways grow with the network):
   ``N T (g0 + E)``, which grows as ``N^2``.
 
 Work (right-hand sides plus Newton iterations) is cell-steps times the
-setting's measured work per cell-step; wall seconds are cell-steps times the
-setting's measured seconds per cell-step (arrival handling included), so the
-prediction is only as good as the machine's steadiness; memory is the network's
-(:func:`spikegauge.scenario.estimate_memory_bytes`) plus the spikes kept
-(16 bytes each) and the arrivals in flight over the longest delay.
+setting's measured work per cell-step; CPU seconds (one thread) are cell-steps
+times the setting's measured CPU seconds per cell-step in the profile (event
+handling included), and the setting with the least predicted CPU seconds is
+recommended; memory is itemised: the network's
+(:func:`spikegauge.scenario.estimate_memory_bytes`), the spikes kept (16 bytes
+each) and the synaptic events in flight over the longest delay.
 """
 from __future__ import annotations
 
@@ -43,6 +44,7 @@ from scipy import stats
 
 from ..errors import InputError
 from ..runs import atomic_path
+from .verdict import accuracy_margin, tied
 
 BYTES_PER_SPIKE = 16
 BYTES_PER_ARRIVAL = 56  # seven 8-byte fields per queued arrival (engine.ArrivalQueue)
@@ -118,8 +120,8 @@ def cost_model(row: pd.Series, table: pd.DataFrame, scenario, profile_dir) -> di
     else:
         e0 = (arrivals + spikes) / t0
         model["g0_steps_per_ms"] = steps / (n0 * t0) - e0
-    # the setting's own seconds per cell-step (arrival handling included) on this machine
-    model["wall_per_cell_step_s"] = float(row["wall_s"]) / steps
+    # the setting's own CPU seconds per cell-step (event handling included) on this machine
+    model["cpu_per_cell_step_s"] = float(row["cpu_s"]) / steps
     return model
 
 
@@ -145,25 +147,33 @@ def predict(model: dict, scenario, n_cells: int, duration_ms: float) -> dict:
     steps = n * t * per_cell_ms
     max_delay = max((p.delay_ms.high if hasattr(p.delay_ms, "high") else 0.0) for p in big.pathways) \
         if big.pathways else 0.0
-    memory = (estimate_memory_bytes(big) + BYTES_PER_SPIKE * spikes
-              + BYTES_PER_ARRIVAL * a * n * max(max_delay, 1.0))
+    memory = dict(network_bytes=float(estimate_memory_bytes(big)), spikes_bytes=BYTES_PER_SPIKE * spikes,
+                  events_in_flight_bytes=BYTES_PER_ARRIVAL * a * n * max(max_delay, 1.0))
     return dict(n_cells=n, duration_ms=t, steps=steps, arrivals=arrivals, spikes=spikes,
                 work=steps * model["work_per_cell_step"],
-                wall_s=model["wall_per_cell_step_s"] * steps,
-                memory_bytes=float(memory))
+                cpu_s=model["cpu_per_cell_step_s"] * steps,
+                memory=memory, memory_bytes=float(sum(memory.values())))
 
 
-def advise(profile_dir, target_jitter_ms: float, target_mismatch_frac: float, duration_s: float,
-           n_cells: int | None = None) -> dict:
+def advise(profile_dir, target_jitter_ms: float | None = None, target_mismatch_frac: float | None = None,
+           duration_s: float | None = None, n_cells: int | None = None) -> dict:
     """Recommend a setting for a production run and write ``advice.json``.
 
-    Among the settings that met the target in every seed of the profile, the
-    one with the least predicted work for the production run is chosen (the
-    cheapest in the sweep need not be: global adaptive grows as N^2).
+    Among the settings that met the target in every seed of the profile (the
+    profile's own target unless given), the one with the least predicted CPU
+    seconds for the production run is chosen (the cheapest in the sweep need
+    not be: global adaptive grows as N^2), with the verdict's tie rule (within
+    10 %, the most accuracy margin); the alternatives listed are the next
+    cheapest by the same prediction. Memory beyond what the machine has
+    available is a warning with what to do about it.
     """
     from .results import load_results
 
     table, doc = load_results(profile_dir)
+    target_jitter_ms = doc["target"]["jitter_ms"] if target_jitter_ms is None else target_jitter_ms
+    target_mismatch_frac = doc["target"]["mismatch_frac"] if target_mismatch_frac is None \
+        else target_mismatch_frac
+    duration_s = doc["scenario"]["duration_ms"] / 1000.0 if duration_s is None else duration_s
     for name, v in (("--target-jitter-ms", target_jitter_ms), ("--duration-s", duration_s)):
         if not (v > 0 and math.isfinite(v)):
             raise InputError(f"{name}: must be a positive number, got {v}")
@@ -173,7 +183,10 @@ def advise(profile_dir, target_jitter_ms: float, target_mismatch_frac: float, du
     scenario = _profile_scenario(profile_dir, doc)
     n = scenario.n_cells if n_cells is None else int(n_cells)
     meets = ((table["status"] == "ok") & (table["target_mismatch_fraction"] <= target_mismatch_frac)
-             & (table["target_shift_rms_ms"] <= target_jitter_ms))
+             & (table["target_shift_rms_ms"] <= target_jitter_ms) & table["cpu_s"].notna())
+    if "open_loop_shift_rms_ms" in table:  # the per-spike target holds open loop too
+        meets &= ((table["open_loop_mismatch_fraction"] <= target_mismatch_frac)
+                  & (table["open_loop_shift_rms_ms"] <= target_jitter_ms))
     table = table.assign(meets=meets)
     held = table.groupby("label")["meets"].all()
     first = table[table["seed"] == doc["seeds"][0]]
@@ -185,23 +198,75 @@ def advise(profile_dir, target_jitter_ms: float, target_mismatch_frac: float, du
     for _, row in candidates.iterrows():
         model = cost_model(row, table, scenario, profile_dir)
         options.append((predict(model, scenario, n, duration_s * 1000.0), model, row))
-    pred, model, row = min(options, key=lambda o: (o[0]["work"], int(o[2]["point"])))
+    options.sort(key=lambda o: (o[0]["cpu_s"], int(o[2]["point"])))
+    # the verdict's tie rule: among predictions within TIE_FRACTION of the cheapest, the
+    # setting with the most accuracy margin
+    ties = [o for o in options if tied(o[0]["cpu_s"], options[0][0]["cpu_s"])]
+    best = max(ties, key=lambda o: (accuracy_margin(o[2], target_jitter_ms, target_mismatch_frac),
+                                    -o[0]["cpu_s"], -int(o[2]["point"])))
+    options.remove(best)
+    options.insert(0, best)
+    pred, model, row = best
     setting = {k: (None if pd.isna(row[k]) else row[k]) for k in ("strategy", "stepper", "dt_ms", "crossing",
                                                                   "delivery", "rtol", "atol")}
+    available = available_memory_bytes()
+    warning = memory_warning(pred["memory"], available)
     advice = dict(target=dict(jitter_ms=target_jitter_ms, mismatch_frac=target_mismatch_frac),
                   run=dict(duration_s=duration_s, n_cells=pred["n_cells"]), scenario_path=scen_path,
                   setting={k: v for k, v in setting.items() if v is not None}, label=row["label"],
                   sweep_point=int(row["point"]),
                   sweep_accuracy=dict(shift_rms_ms=float(row["target_shift_rms_ms"]),
                                       mismatch_fraction=float(row["target_mismatch_fraction"])),
-                  predicted=pred, cost_model=model,
-                  alternatives=[dict(label=r["label"], work=p["work"], wall_s=p["wall_s"])
-                                for p, _, r in sorted(options, key=lambda o: o[0]["work"])[:5]])
+                  predicted=pred, cost_model=model, available_memory_bytes=available, memory_warning=warning,
+                  alternatives=[dict(label=r["label"], work=p["work"], cpu_s=p["cpu_s"])
+                                for p, _, r in options[1:6]])
     from ..analysis.comparison import jsonable
 
     with atomic_path(Path(profile_dir) / "advice.json") as tmp:
         Path(tmp).write_text(json.dumps(jsonable(advice), indent=1, allow_nan=False))
     return jsonable(advice)
+
+
+def available_memory_bytes() -> float | None:
+    """Memory the machine has available now (bytes), from /proc/meminfo; None where unknown."""
+    try:
+        with open("/proc/meminfo") as f:
+            for line in f:
+                if line.startswith("MemAvailable:"):
+                    return float(line.split()[1]) * 1024.0
+    except OSError:
+        pass
+    return None
+
+
+def memory_warning(memory: dict, available: float | None) -> str:
+    """A warning with advice when the predicted memory exceeds what is available ("" otherwise)."""
+    total = sum(memory.values())
+    if available is None or total <= available:
+        return ""
+    biggest = max(memory, key=memory.get)
+    advice = {"spikes_bytes": "write the spikes out in pieces as the run goes, or keep fewer cells' spikes",
+              "network_bytes": "use fewer cells or synapses, or a machine with more memory",
+              "events_in_flight_bytes": "shorten the longest delay or lower the event rate"}[biggest]
+    return (f"the run needs about {format_bytes(total)} but this machine has {format_bytes(available)} "
+            f"available; the largest part is {biggest.replace('_bytes', '').replace('_', ' ')} "
+            f"({format_bytes(memory[biggest])}): {advice}")
+
+
+def format_bytes(n: float) -> str:
+    """Bytes in the largest fitting unit (kB, MB, GB, TB; powers of 1000)."""
+    for unit, size in (("TB", 1e12), ("GB", 1e9), ("MB", 1e6), ("kB", 1e3)):
+        if n >= size:
+            return f"{n / size:.3g} {unit}"
+    return f"{n:.0f} bytes"
+
+
+def format_duration(seconds: float) -> str:
+    """Seconds in the largest fitting unit: s, min, h or days."""
+    for unit, size in (("days", 86400.0), ("h", 3600.0), ("min", 60.0)):
+        if seconds >= size:
+            return f"{seconds / size:.3g} {unit}"
+    return f"{seconds:.3g} s"
 
 
 def _profile_scenario(profile_dir, doc):

@@ -147,9 +147,13 @@ def build_report(profile_dir) -> list[Path]:
 
         a = json.loads(advice_path.read_text())
         p = a["predicted"]
-        rep.p(f"Production advice (advice.json): {a['label']} for {fmt(p['n_cells'])} cells over "
-              f"{fmt(a['run']['duration_s'])} s: predicted {fmt(p['steps'])} cell-steps, wall "
-              f"{fmt(p['wall_s'])} s, memory {fmt(p['memory_bytes'] / 1e9)} GB.")
+        if "cpu_s" in p:
+            from ..profile.advice import format_bytes, format_duration
+
+            rep.p(f"Production advice (advice.json): {a['label']} for {fmt(p['n_cells'])} cells over "
+                  f"{format_duration(a['run']['duration_s'])}: predicted {fmt(p['steps'])} cell-steps, CPU "
+                  f"{format_duration(p['cpu_s'])} on one thread, memory {format_bytes(p['memory_bytes'])}."
+                  + (f" Warning: {a['memory_warning']}." if a.get("memory_warning") else ""))
     if v["seeds"] > 1:
         rep.p(f"The verdict held for {v['seeds_held']} of {v['seeds']} seeds.")
 
