@@ -191,6 +191,7 @@ def evaluate(spec, store, ref_tasks, ref_runs, ladders, points, by_digest, out_d
             open_doc = _comparison_doc(store, twin["digest"], open_run, ref, ref_digest,
                                        ref.t_stop_ms - ref.t_start_ms, COMPARE_OPTIONS)
             rows.append(point_row(k, task, run, doc, window, spec, entry, open_run, open_doc))
+            rows[-1]["open_loop_digest"] = twin["digest"]
             listed.append(dict(point=k, seed=seed, label=setting_label(task["settings"]),
                                digest=task["digest"], status=run.status, message=run.message))
             k += 1

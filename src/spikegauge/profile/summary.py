@@ -4,7 +4,7 @@ from __future__ import annotations
 
 def _horizon(p: dict) -> str:
     if p["median_censored"]:
-        return f"> {p['median_horizon_ms']:.4g} ms (agreement never lost in most probes)"
+        return f"> {p['median_horizon_ms']:.4g} ms (agreement never lost in most perturbed runs)"
     return f"{p['median_horizon_ms']:.4g} ms"
 
 
@@ -38,8 +38,10 @@ def profile_text(doc: dict) -> str:
         u = ref["uncertainty"]
         lines.append(f"Reference (seed {ref['seed']}, {u['kind']}): {u['message']}.")
         for kind, p in lad["probes"].items():
-            lines.append(f"  horizon after {kind} probe: {_horizon(p)} (median of {len(p['cells'])} cells)")
-        lines.append(f"  per-spike targets judged over the first {lad['judged_window_ms']:.4g} ms")
+            lines.append(f"  divergence time after a {kind} perturbation: {_horizon(p)} "
+                         f"(median of {len(p['cells'])} cells)")
+        lines.append(f"  evaluation window: closed-loop per-spike targets judged over the first "
+                     f"{lad['judged_window_ms']:.4g} ms; open loop over the whole run")
     t = doc.get("timing")
     if t:
         lines.append(f"{t['points_computed']} runs computed in {t['wall_s']:.1f} s ({t['executor']}).")

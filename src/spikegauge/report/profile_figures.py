@@ -156,30 +156,37 @@ def plot_convergence(table: pd.DataFrame, doc: dict) -> Figure:
     return fig
 
 
-def plot_error_growth(over_times: dict, doc: dict) -> Figure:
-    """RMS jitter per window over time for a few settings, sensitivity horizons marked.
+def plot_error_growth(over_times: dict, doc: dict, open_loop: dict | None = None) -> Figure:
+    """RMS jitter per window over time for a few settings, closed loop (solid) and open loop
+    (dashed, where given), the divergence times after each perturbation marked.
 
-    ``over_times`` maps a label to a comparison's ``over_time`` table (dict of lists).
+    ``over_times`` and ``open_loop`` map a label to a comparison's ``over_time`` table.
     """
-    fig, ax = _new_figure(None, (7.5, 4.2))
+    fig, ax = _new_figure(None, (8.0, 5.6))
+    colours = [OKABE_ITO[k] for k in ("blue", "vermillion", "green", "purple", "black", "sky")]
     for i, (label, ot) in enumerate(over_times.items()):
+        colour = colours[i % len(colours)]
         ot = pd.DataFrame(ot)
         mid = 0.5 * (ot["start_ms"] + ot["stop_ms"])
-        ax.plot(mid, ot["shift_rms_ms"].astype(float), color=COMBO_COLOURS[i % 8], marker=MARKERS[i % 10],
-                markersize=3, label=label)
+        ax.plot(mid, ot["shift_rms_ms"].astype(float), color=colour, marker=MARKERS[i % len(MARKERS)],
+                markersize=3, label=f"{label}, closed loop")
+        if open_loop and label in open_loop:
+            ol = pd.DataFrame(open_loop[label])
+            ax.plot(0.5 * (ol["start_ms"] + ol["stop_ms"]), ol["shift_rms_ms"].astype(float), color=colour,
+                    linestyle="--", linewidth=1.0, label=f"{label}, open loop")
     ladder = doc["ladder"][0]["probes"]
-    styles = {"voltage": ":", "shift": "--", "delete": "-."}
+    greys = {"voltage": ("0.15", ":"), "shift": ("0.35", "--"), "delete": ("0.55", "-.")}
     for kind, p in ladder.items():
-        if p["median_censored"]:
-            continue
+        colour, style = greys[kind]
         t = float(np.median(p["times_ms"])) + p["median_horizon_ms"]
-        ax.axvline(t, color="0.3", linestyle=styles[kind], label=f"horizon after {kind} probe")
-    ax.axvline(doc["ladder"][0]["judged_window_ms"], color=OKABE_ITO["vermillion"], linewidth=1.2,
-               label="end of judged window")
+        bound = "after the run (> " if p["median_censored"] else ""
+        ax.axvline(min(t, doc["scenario"]["duration_ms"]), color=colour, linestyle=style, linewidth=1.4,
+                   label=f"divergence time after a {kind} perturbation"
+                         + (f" ({bound}{p['median_horizon_ms']:.3g} ms))" if bound else ""))
     ax.set_yscale("log")
     ax.set_xlabel("time (ms)")
     ax.set_ylabel("RMS jitter per window (ms)")
-    ax.legend(fontsize="x-small")
+    ax.legend(fontsize="x-small", loc="upper left", bbox_to_anchor=(0.0, -0.13), ncol=2, frameon=False)
     ax.set_title("Error growth over time", fontsize="medium")
     return fig
 
