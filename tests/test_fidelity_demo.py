@@ -1,7 +1,7 @@
 """Statistical fidelity on the bundled demo-balanced network: what it is, false alarms, a coarse setting.
 
 One yardstick (K exact reference runs under perturbed initial voltages) serves every test of
-this file: about 20 s of one thread for the runs.
+this file; the file runs about 50 exact runs of the demo (about 0.3 s of one thread each).
 """
 from pathlib import Path
 
@@ -69,14 +69,15 @@ def test_false_alarms_match_the_family_wise_level(demo):
 
 
 def test_coarse_grid_setting_fails(demo):
-    # Spikes on the grid of a coarse fixed step synchronise spuriously (Hansel, Mato, Meunier &
-    # Neltner 1998, Neural Comput 10:467): euler, spike at the step end, arrivals on the grid, 0.5 ms.
+    # The naive loop: euler, spike at the step end, arrivals on a 0.5 ms grid. Spike times are
+    # quantised to the grid and first order at best (Hansel, Mato, Meunier & Neltner 1998, Neural
+    # Comput 10:467); on this network it does not synchronise the cells but raises the inhibitory
+    # rate and reshapes the ISI distributions (measured), which the statistical target must see.
     net, _, ys = demo
     run = simulate(net, strategy="fixed", stepper="euler", crossing="step", delivery="grid", dt_ms=0.5,
                    threads=1)
     passed, table = ys.judge(run, family_alpha=FAMILY_ALPHA)
     assert not passed
-    failed = table[~table["passed"]].set_index("statistic")
-    assert "chi" in failed.index
-    assert failed.loc["chi", "test_value"] > failed.loc["chi", "reference_mean"]
+    failed = set(table["statistic"][~table["passed"]])
+    assert {"isi_exc", "isi_inh"} <= failed
     assert np.all(table["holm_p"] >= table["p_value"])
