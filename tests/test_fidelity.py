@@ -159,8 +159,8 @@ def test_yardstick_passes_the_same_process_and_fails_a_changed_rate():
 
 
 def test_yardstick_ks_p_value_by_hand():
-    # Three reference runs whose ISIs are {1, 1}, {1, 1}, {2, 2}: pair distances 0, 1, 1. A test with ISIs {1, 1}
-    # is 0, 0, 1 away, mean 1/3: two of three pairs are at least as far, p = (1 + 2) / (3 + 1)
+    # Three reference runs whose ISIs are {1, 1}, {1, 1}, {2, 2}: pair distances 0, 1, 1. A test with
+    # ISIs {1, 1} is 0, 0, 1 away, mean 1/3: two of three pairs are at least as far, p = (1 + 2) / (3 + 1)
     # (pen and paper).
     def one_cell(isi):
         return Raster.from_arrays([0, 0, 0], [1.0, 1.0 + isi, 1.0 + 2 * isi], n_cells=1,
@@ -200,3 +200,13 @@ def test_ratio_statistics_are_judged_on_a_log_scale():
     row = ys.judge(test)[1].set_index("statistic").loc["fano"]
     assert row["scale"] == "log"
     assert row["p_value"] == pytest.approx(prediction_p_value([1.0, 2.0, 3.0], math.log(fano)))
+
+
+def test_log_scale_statistic_left_out_when_not_positive():
+    # Clocks at 20 Hz put exactly one spike of every cell in each 50 ms bin: the population count
+    # does not vary and the Fano factor is 0 (pen and paper), which a log scale cannot take.
+    runs = _poisson_runs(2, 20.0, 0) + [_regular([20.0] * 60, duration_ms=2000.0)]
+    assert population_statistics(runs[2])["fano"] == 0.0
+    ys = Yardstick.from_runs(runs)
+    assert "fano" not in ys.names
+    assert "log scale" in ys.left_out["fano"]

@@ -14,7 +14,8 @@ Two kinds of test, one family:
 * scalar statistics (:func:`population_statistics`): the test run's value
   must lie within the t-distribution prediction interval of the K reference
   values, ``mean +- t_{1-a/2, K-1} s sqrt(1 + 1/K)`` (the interval that
-  contains one new observation of a normal sample with probability 1 - a);
+  contains one new observation of a normal sample with probability 1 - a;
+  ratio statistics on a log scale, :data:`LOG_SCALE`);
 * ISI distributions, one per group: the two-sample Kolmogorov-Smirnov
   distance between the test's and the reference runs' inter-spike intervals,
   calibrated against the distances between reference runs (ISIs of one cell
@@ -43,7 +44,7 @@ FAMILY_ALPHA = 0.05
 """Default family-wise level: the chance that a faithful setting fails any statistic."""
 
 VOLTAGE_PERTURBATION_MV = 1.0
-"""Largest move of an initial voltage in a yardstick run (mV); see :meth:`Yardstick.from_runs` for why 1 mV."""
+"""Largest move of an initial voltage in a yardstick run (mV); :meth:`Yardstick.from_runs` says why."""
 
 MAX_INTERVAL_INFLATION = 1.2
 """The t prediction interval of the default K is at most this many times wider than with a known spread."""
@@ -183,11 +184,12 @@ def default_runs(n_tests: int, family_alpha: float = FAMILY_ALPHA,
     * the t prediction interval at that level, ``t_{1 - a/2, K-1} sqrt(1 + 1/K)``
       spreads wide, must be at most ``max_inflation`` times the normal
       quantile ``z_{1 - a/2}`` it tends to as K grows (so K buys little more
-      power beyond it; a design choice, not a published rule). The interval
-      itself needs K >= 3 (two runs give one degree of freedom and an
-      interval about 30 times wider at 0.5 %).
+      power beyond it; a design choice, not a published rule). K >= 3
+      always: two runs give one degree of freedom and, at 0.5 %, an interval
+      56 times wider than the normal one (three runs: 5.8 times).
 
-    For two groups (11 tests) at 5 %: K = 22.
+    For two groups (11 tests) at 5 %: the pairs need K = 22 (231 pairs; 21
+    runs give 210 < 219), the interval K = 17 (1.196 times the normal width).
 
     Parameters
     ----------
@@ -305,9 +307,8 @@ class Yardstick:
     options : dict
         Bins and sampling of :func:`population_statistics`, used again for the test run.
     n_distinct : int
-        Number of reference rasters that differ from each other: 1 means the
-        perturbations never lost agreement (the network is not chaotic over
-        this run), and the spread is zero.
+        Number of reference rasters that differ from each other (fewer than
+        K when a perturbation changed no spike time).
     shape : tuple
         ``(n_cells, t_start_ms, t_stop_ms, group_names)`` of the reference
         runs; a test run must match it.
@@ -357,8 +358,8 @@ class Yardstick:
         so the K runs are different realisations over the whole run, as a
         faithful setting's run is after its own divergence; for a setting
         that follows the reference longer the test is conservative. A network
-        that is not chaotic gives nearly identical runs and little spread
-        (``n_distinct`` counts the distinct rasters); judge it spike by spike.
+        that is not chaotic forgets the moves and gives nearly identical
+        statistics, so any setting's error fails; judge it spike by spike.
 
         Parameters
         ----------
@@ -387,6 +388,10 @@ class Yardstick:
         values = np.array([[t[n] for n in all_names] for t in table])
         finite = np.isfinite(values).all(axis=0)
         left_out = {n: "undefined in some reference runs" for n, ok in zip(all_names, finite) if not ok}
+        for j, n in enumerate(all_names):
+            if n in LOG_SCALE and finite[j] and not values[:, j].min() > 0:
+                finite[j] = False
+                left_out[n] = "not positive in some reference runs (judged on a log scale)"
         isis = tuple(group_isis(r) for r in rasters)
         groups = []
         for g in r0.group_names:
@@ -431,10 +436,12 @@ class Yardstick:
             Every statistic passes (Holm-adjusted p-value above ``family_alpha``).
         table : DataFrame
             One row per test: ``statistic``, ``kind`` ("t" or "ks"), ``scale``
-            ("log" or "linear": where the t interval is taken), ``reference_mean`` (for "ks": the mean distance between reference
+            ("log" or "linear": where the t interval is taken),
+            ``reference_mean`` (for "ks": the mean distance between reference
             runs), ``spread`` (sample standard deviation over the K runs; for
             "ks", of the pair distances), ``test_value`` (for "ks": the test's
-            mean distance), ``p_value``, ``holm_p``, ``passed``.
+            mean distance), ``p_value``, ``holm_p``, ``passed``. Means and
+            spreads are in the statistic's own units, also on a log scale.
         """
         if not 0 < family_alpha < 1:
             raise ValueError(f"family_alpha must be between 0 and 1, got {family_alpha}")
@@ -448,8 +455,8 @@ class Yardstick:
         rows = []
         for j, name in enumerate(self.names):
             x, y = self.values[:, j], float(stats_test[name])
-            if name in LOG_SCALE:
-                p = prediction_p_value(np.log(x), math.log(y)) if x.min() > 0 and y > 0 else 0.0
+            if name in LOG_SCALE:  # reference values are positive (from_runs); a test value <= 0 fails
+                p = prediction_p_value(np.log(x), math.log(y)) if y > 0 else 0.0
             else:
                 p = prediction_p_value(x, y)
             rows.append(dict(statistic=name, kind="t", scale="log" if name in LOG_SCALE else "linear",
@@ -462,7 +469,8 @@ class Yardstick:
                 np.ones(self.k)
             dist = float(d.mean())
             p = (1 + np.count_nonzero(null >= dist)) / (null.size + 1)
-            rows.append(dict(statistic=f"isi_{g}", kind="ks", scale="linear", reference_mean=float(null.mean()),
+            rows.append(dict(statistic=f"isi_{g}", kind="ks", scale="linear",
+                             reference_mean=float(null.mean()),
                              spread=float(null.std(ddof=1)) if null.size > 1 else math.nan,
                              test_value=dist, p_value=float(p)))
         table = pd.DataFrame(rows, columns=["statistic", "kind", "scale", "reference_mean", "spread",
