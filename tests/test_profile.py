@@ -152,7 +152,7 @@ def _machine_free(profile_dir):
 
     # CPU seconds, and the verdict and the fronts ranked by them, depend on the machine;
     # the verdict's rules are tested on constructed tables (tests/test_verdict.py).
-    machine = {"timing", "verdict", "verdict_per_seed", "cpu"}
+    machine = {"timing", "verdict", "verdict_per_seed", "verdict_statistics", "cpu"}
 
     def strip(x):
         if isinstance(x, dict):
@@ -170,7 +170,7 @@ def test_profile_resumes_and_executors_agree(tmp_path):
     scen.write_text(TINY + SWEEP)
     a = tmp_path / "a"
     out = _invoke(["profile", str(scen), "--out", str(a), "--quiet"])
-    assert "Verdict:" in out and "horizon after shift probe" in out
+    assert "Verdict:" in out and "divergence time after a shift perturbation" in out
     table = pd.read_csv(a / "results.csv")
     swept = table[table["origin"] == "sweep"].reset_index(drop=True)
     assert list(swept["status"]) == ["ok", "ok", "failed", "ok"]
@@ -185,7 +185,10 @@ def test_profile_resumes_and_executors_agree(tmp_path):
     assert set(doc["ladder"][0]["probes"]) == {"voltage", "shift", "delete"}
     assert all(len(p["cells"]) == 5 for p in doc["ladder"][0]["probes"].values())
     n_points = len(list((a / "points").iterdir()))
-    assert n_points == 1 + 15 + 2 * (4 + 6)  # every setting also runs open loop
+    # the reference, 15 ladder perturbations, the statistical yardstick's other runs, and every
+    # setting twice (closed and open loop)
+    assert doc["yardstick"]["k"] == 22  # two groups: 11 statistics (analysis/fidelity.py default_runs)
+    assert n_points == 1 + 15 + (22 - 1) + 2 * (4 + 6)
 
     # rerun: nothing recomputed, same results
     _invoke(["profile", str(scen), "--out", str(a), "--quiet"])

@@ -169,8 +169,21 @@ def ladder_probes(network, reference, target_jitter_ms: float, n: int = N_PROBE_
     return sorted(probes, key=lambda p: (order[p["kind"]], p["cell"]))
 
 
+def yardstick_probes(network) -> list[dict]:
+    """The runs of the statistical yardstick (:mod:`spikegauge.analysis.fidelity`): the reference
+    itself (index 0) and K - 1 runs with every initial voltage moved a little."""
+    from ..analysis.fidelity import default_runs, statistic_names
+
+    n_tests = len(statistic_names(network.group_names)) + len(network.group_names)
+    return [dict(kind="yardstick", index=i) for i in range(1, default_runs(n_tests))]
+
+
 def apply_probe(network, probe: dict):
     """The network with one probe applied (a new Network; the original is untouched)."""
+    if probe["kind"] == "yardstick":
+        from ..analysis.fidelity import perturbed_network
+
+        return perturbed_network(network, int(probe["index"]))
     kind, cell = probe["kind"], int(probe["cell"])
     if kind == "voltage":
         y0 = np.array(network.y0, dtype=np.float64, copy=True)

@@ -23,7 +23,9 @@ target_missed_fraction, target_extra_fraction``; open loop over the whole run
 (the point's twin replaying the reference's raster as recurrent input:
 :func:`spikegauge.simulate` ``open_loop``) ``open_loop_status, open_loop_shift_rms_ms,
 open_loop_shift_max_abs_ms, open_loop_mismatch_fraction, meets_closed_loop,
-meets_open_loop, meets_target`` (both); then every
+meets_open_loop, meets_target`` (both); the statistical target
+``statistics_pass, statistics_failed, statistics_min_holm_p`` (:mod:`.statistics`);
+the sweep's rounds ``origin, round, work_limit, predicted_work``; then every
 key of the comparison summary (see :func:`spikegauge.analysis.compare`).
 Only the time columns (:data:`TIME_COLUMNS`, and ``timing`` in ``profile.json``)
 depend on the machine.
@@ -44,6 +46,7 @@ from .reference import ladder_summary, probe_horizon, reference_uncertainty
 from .sweep import setting_label
 from .front import REFERENCE_FLOOR_FACTOR
 from .open_loop import open_loop_findings
+from .statistics import judge_point, yardstick_doc
 from .verdict import conclusions
 
 COMPARE_OPTIONS = dict(match_window_ms=2.0, tau_ms=5.0)
@@ -173,7 +176,8 @@ def ladder_doc(ref, probe_tasks, by_digest, seed) -> dict:
                 judged_window_ms=judged_window_ms(ladder, ref.t_stop_ms - ref.t_start_ms))
 
 
-def evaluate(spec, store, ref_tasks, ref_runs, ladders, points, by_digest, out_dir, extra=None) -> dict:
+def evaluate(spec, store, ref_tasks, ref_runs, ladders, points, by_digest, out_dir, extra=None,
+             yardsticks=None) -> dict:
     """Compare every point with its reference; write ``results.csv``; return the profile document.
 
     ``points[seed]`` lists ``(entry, task, open_loop_task)`` of the seed's sweep in table order;
@@ -192,6 +196,7 @@ def evaluate(spec, store, ref_tasks, ref_runs, ladders, points, by_digest, out_d
                                        ref.t_stop_ms - ref.t_start_ms, COMPARE_OPTIONS)
             rows.append(point_row(k, task, run, doc, window, spec, entry, open_run, open_doc))
             rows[-1]["open_loop_digest"] = twin["digest"]
+            rows[-1].update(judge_point((yardsticks or {}).get(seed), run))
             listed.append(dict(point=k, seed=seed, label=setting_label(task["settings"]),
                                digest=task["digest"], status=run.status, message=run.message))
             k += 1
@@ -218,6 +223,7 @@ def evaluate(spec, store, ref_tasks, ref_runs, ladders, points, by_digest, out_d
         ladder=[ladders[s] for s in spec.seeds],
         points=listed,
         open_loop=findings,
+        yardstick=yardstick_doc((yardsticks or {}).get(seed0)),
     )
     doc.update(extra or {})
     doc.update(conclusions(table, doc))

@@ -33,7 +33,8 @@ from .cost import COST_METHOD, THREADS
 from .executors import make_executor, skipped_run
 from .results import COMPARE_OPTIONS
 from .rounds import WORK_LIMIT_FACTOR, SweepPlan
-from .reference import ladder_probes, reference_settings
+from .reference import ladder_probes, reference_settings, yardstick_probes
+from .statistics import make_yardstick
 from .store import PointStore, point_digest
 from .sweep import default_sweep, load_sweep_file, parse_sweep, quick_sweep, setting_label, split_sweep_table
 
@@ -116,6 +117,8 @@ def _task(spec: ProfileSpec, seed: int, settings: dict, probe=None, record_steps
 def _label(task) -> str:
     if task["probe"]:
         p = task["probe"]
+        if p["kind"] == "yardstick":
+            return f"seed {task['seed']} reference, yardstick run {p['index']}"
         return f"seed {task['seed']} reference perturbed ({p['kind']}, cell {p['cell']})"
     if task.get("t_stop_ms") is not None:
         return f"seed {task['seed']} {setting_label(task['settings'])} (pilot, {task['t_stop_ms']:g} ms)"
@@ -232,10 +235,14 @@ def run_profile(scenario_path, out_dir, *, sweep_file=None, quick=False, seeds=1
                   if ref_runs[s][-1].status == "ok" else [] for s in spec.seeds}
         probe_tasks = {s: [_task(spec, s, ref_settings[-1], probe=p) for p in probes[s]]
                        for s in spec.seeds}
-        progress.add(sum(len(probe_tasks[s]) for s in spec.seeds) - len(spec.seeds) * N_PROBES_EXPECTED)
+        yard_tasks = {s: [_task(spec, s, ref_settings[-1], probe=p) for p in yardstick_probes(networks[s])]
+                      if ref_runs[s][-1].status == "ok" else [] for s in spec.seeds}
+        progress.add(sum(len(probe_tasks[s]) + len(yard_tasks[s]) for s in spec.seeds)
+                     - len(spec.seeds) * N_PROBES_EXPECTED)
         ladders = None
         while True:
-            todo = [] if ladders is not None else [t for s in spec.seeds for t in probe_tasks[s]]
+            todo = [] if ladders is not None else \
+                [t for s in spec.seeds for t in probe_tasks[s] + yard_tasks[s]]
             round_entries = []
             for s in spec.seeds:
                 entries, new_pilots = plans[s].next_round()
@@ -259,6 +266,8 @@ def run_profile(scenario_path, out_dir, *, sweep_file=None, quick=False, seeds=1
                 by_digest[task["digest"]] = run
             if ladders is None:
                 ladders = {s: ladder_doc(ref_runs[s][-1], probe_tasks[s], by_digest, s) for s in spec.seeds}
+                yardsticks = {s: make_yardstick(ref_runs[s][-1], [by_digest[t["digest"]] for t in yard_tasks[s]])
+                              for s in spec.seeds}
             for s in spec.seeds:
                 for pilot, task in pilots[s]:
                     if pilot.status == "pending":
@@ -300,7 +309,8 @@ def run_profile(scenario_path, out_dir, *, sweep_file=None, quick=False, seeds=1
                               predicted_work=p.predicted_work(spec.scenario.duration_ms))
                          for s in spec.seeds for p, _ in pilots[s]],
                  work_limit_factor=float(work_limit_factor))
-    doc = evaluate(spec, store, ref_tasks, ref_runs, ladders, table_points, by_digest, out, extra)
+    doc = evaluate(spec, store, ref_tasks, ref_runs, ladders, table_points, by_digest, out, extra,
+                   yardsticks=yardsticks)
     doc["sweep"]["n_runs"] = n_runs
     doc["timing"] = dict(wall_s=time.perf_counter() - t_start, points_computed=batch.computed,
                          failed_points_retried=batch.retried,

@@ -28,6 +28,9 @@ def profile_text(doc: dict) -> str:
                 lines.append(f"  Open loop over the whole run (reference raster as input): RMS jitter "
                              f"{ol:.3g} ms, (missed + extra) per reference spike "
                              f"{rec.get('open_loop_mismatch_fraction', float('nan')):.3g}.")
+    vs = doc.get("verdict_statistics")
+    if vs:
+        lines.append(f"Statistical verdict: {vs['text']}.")
     sc = doc["scenario"]
     sw = doc["sweep"]
     n_seeds = len(doc["seeds"])

@@ -206,9 +206,17 @@ def conclusions(table: pd.DataFrame, doc: dict) -> dict:
     if len(seeds) > 1:
         verdict["text"] += f" (the outcome held for {held} of {len(seeds)} seeds)"
     first = table[table["seed"] == seeds[0]]
+    statistical = None
+    if "statistics_pass" in first and doc.get("yardstick"):
+        by_stats = first.assign(meets_target=first["statistics_pass"].astype(bool) & (first["status"] == "ok"))
+        statistical = seed_verdict(by_stats, n_cells, duration, target["jitter_ms"], target["mismatch_frac"])
+        statistical["text"] = ("statistics indistinguishable from the reference's (rates, irregularity, "
+                               "synchrony, spectrum and ISI distributions within the spread of "
+                               f"{doc['yardstick']['k']} reference runs): " + statistical["text"])
     fronts = {cost: {err: strategy_fronts(first, err, cost) for err in ERROR_MEASURES}
               for cost in ("cpu", "work")}
     ref_unc = doc["references"][0]["uncertainty"].get("shift_rms_ms")
     ref_unc = math.nan if ref_unc is None else float(ref_unc)
-    return dict(verdict=verdict, verdict_per_seed=per_seed, fronts=fronts,
+    verdict["target"] = "per-spike: RMS jitter and (missed + extra) per reference spike"
+    return dict(verdict=verdict, verdict_per_seed=per_seed, verdict_statistics=statistical, fronts=fronts,
                 fits=fitted_orders(first, reference_rms_ms=ref_unc))
