@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import json
+import math
 
 import pytest
 from click.testing import CliRunner
@@ -67,7 +68,8 @@ def test_advise_command_writes_advice(profile_dir):
     a = json.loads((profile_dir / "advice.json").read_text())
     assert a["predicted"]["n_cells"] == 40 and a["run"]["duration_s"] == 1
     assert a["setting"]["strategy"] in ("fixed", "global-adaptive", "local-adaptive")
-    assert a["predicted"]["memory_bytes"] > 0 and a["predicted"]["wall_s"] > 0
+    # (the predicted wall seconds come from measured times: only their presence is checked)
+    assert a["predicted"]["memory_bytes"] > 0 and math.isfinite(a["predicted"]["wall_s"])
     # global adaptive grows as N^2: it is never the pick for a larger run when local
     # adaptive meets the target too
     assert a["setting"]["strategy"] != "global-adaptive"
