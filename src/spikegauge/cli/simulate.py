@@ -20,7 +20,9 @@ from .main import cli, progress_bar
 @click.option("--rtol", type=float, help="Relative tolerance (adaptive strategies).")
 @click.option("--atol", type=float, help="Absolute tolerance in units of each state's scale (adaptive).")
 @click.option("--auto-scale", is_flag=True, help="Measure state scales with a short pilot run (adaptive).")
-@click.option("--threads", type=int, help="Number of threads (results do not depend on it).")
+@click.option("--threads", type=int,
+              help="Number of threads (results do not depend on it; default: as many as help, one "
+                   "below 200 cells, never more than the cores other programs leave free).")
 @click.option("--csv", "write_csv", is_flag=True, help="Also write spikes.csv.")
 @click.option("--max-memory-gb", type=float,
               help="Memory (GB) the run may use; overrides the machine's available memory.")
