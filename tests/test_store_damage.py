@@ -82,10 +82,13 @@ def test_each_kind_of_damage_is_found_reported_once_and_recomputed(profiled, tmp
 
     # the store's verdict, point by point
     store = PointStore(out)
-    for digest in points:
-        assert store.has(digest) == (digest not in damaged_runs), digest
-        assert store.has(digest) == (digest not in damaged_runs), digest      # asked twice...
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        for digest in points:
+            assert store.has(digest) == (digest not in damaged_runs), digest
+            assert store.has(digest) == (digest not in damaged_runs), digest  # asked twice...
     assert sorted(d for d, _ in store.damaged) == sorted(damaged_runs)       # ...reported once
+    assert len([w for w in caught if issubclass(w.category, DamagedPointWarning)]) == len(damaged_runs)
     reasons = dict(store.damaged)
     assert "belongs to point " + points[0] in reasons[p["foreign"].name]
     assert "not a run record" in reasons[p["json_other"].name]
