@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import json
+import math
 
 import pytest
 from click.testing import CliRunner
@@ -68,7 +69,8 @@ def test_advise_command_writes_advice(profile_dir):
     a = json.loads((profile_dir / "advice.json").read_text())
     assert a["predicted"]["n_cells"] == 40 and a["run"]["duration_s"] == 1
     assert a["setting"]["strategy"] in ("fixed", "global-adaptive", "local-adaptive")
-    assert a["predicted"]["memory_bytes"] > 0 and a["predicted"]["cpu_s"] > 0
+    # (predicted CPU seconds come from measured times: only their presence is checked)
+    assert a["predicted"]["memory_bytes"] > 0 and math.isfinite(a["predicted"]["cpu_s"])
     assert a["predicted"]["memory_bytes"] == pytest.approx(sum(a["predicted"]["memory"].values()))
     # no alternative is predicted cheaper than the recommendation by more than the tie margin
     assert all(alt["cpu_s"] >= a["predicted"]["cpu_s"] / (1 + TIE_FRACTION) for alt in a["alternatives"])

@@ -11,7 +11,6 @@ from __future__ import annotations
 import resource
 import subprocess
 import sys
-import time
 
 import pytest
 from click.testing import CliRunner
@@ -226,12 +225,10 @@ i_bias_pa = 5000.0
 def test_too_many_expected_spikes_are_refused_before_the_run(tmp_path):
     path = tmp_path / "many.toml"
     path.write_text(MANY_SPIKES)
-    started = time.monotonic()
     res = invoke("simulate", path, "--quiet", "--out", tmp_path / "run")
     assert res.exit_code == 2, res.output
     lines = _lines(res.output)
     assert len(lines) == 1 and "spikes" in lines[0] and " GB" in lines[0], res.output
     assert "--max-memory-gb" in lines[0]
-    # Refused up front, not after integrating: well under the seconds an hour of 2e5 cells takes.
-    assert time.monotonic() - started < 30
-    assert not (tmp_path / "run" / "spikes.npz").exists()
+    # Refused up front, not after integrating: nothing of the run was written.
+    assert not (tmp_path / "run").exists()

@@ -99,8 +99,16 @@ def _env():
 
 
 def _profile(scenario, out, **popen):
-    return subprocess.Popen(COMMAND + ["profile", str(scenario), "--quick", "--quiet", "--out", str(out)],
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=_env(), **popen)
+    # A shell without job control starts a background job (`pytest ... &`) with SIGINT ignored,
+    # and an ignored signal stays ignored in every child: the profile would never see Ctrl-C.
+    # With a handler installed here, the child starts with the default, as under a terminal.
+    previous = signal.signal(signal.SIGINT, signal.default_int_handler)
+    try:
+        return subprocess.Popen(COMMAND + ["profile", str(scenario), "--quick", "--quiet", "--out", str(out)],
+                                stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=_env(),
+                                **popen)
+    finally:
+        signal.signal(signal.SIGINT, previous)
 
 
 def _finished(out: Path) -> dict:

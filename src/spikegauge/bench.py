@@ -335,12 +335,65 @@ LIF_SETTINGS = dict(stepper="euler", crossing="step", delivery="grid", dt_ms=0.1
 HH_SETTINGS = dict(stepper="rk4", crossing="linear", delivery="grid", dt_ms=0.01)
 
 
+SCALING_MIN_R2 = 0.9
+"""Smallest r^2 of the log-log fit for a scaling exponent to be reported (common practice)."""
+
+SCALING_MAX_STDERR = 0.2
+"""Largest standard error of a reported scaling exponent: at two standard errors 0.2 already
+spans 0.6-1.4, so a wider fit says nothing about the 1.0 +- 0.1 target (common practice)."""
+
+
+def fit_exponent(sizes, seconds) -> dict:
+    """Least-squares slope of log(seconds) against log(size), with its quality.
+
+    Parameters
+    ----------
+    sizes : array_like, shape (n,)
+        Problem sizes (cells, or ms of simulated time), positive.
+    seconds : array_like, shape (n,)
+        Loop times (s) measured at those sizes.
+
+    Returns
+    -------
+    dict
+        ``exponent`` (the slope, or None when the fit is too noisy to report),
+        ``raw_exponent`` (the slope whatever its quality), ``stderr`` (standard
+        error of the slope), ``r2`` (coefficient of determination), ``quality``
+        ("ok" or "too noisy to fit: ..." naming the failed criterion).
+        A slope at or below zero (a larger problem taking no longer), an r^2
+        under :data:`SCALING_MIN_R2` or a standard error over
+        :data:`SCALING_MAX_STDERR` is reported as too noisy: on a shared
+        machine a timing disturbed by other processes is the likely cause.
+    """
+    from scipy.stats import linregress
+
+    with np.errstate(divide="ignore", invalid="ignore"):   # a zero timing is refused below
+        x = np.log(np.asarray(sizes, dtype=float))
+        y = np.log(np.asarray(seconds, dtype=float))
+    if x.size < 3 or not (np.all(np.isfinite(x)) and np.all(np.isfinite(y))):
+        return dict(exponent=None, raw_exponent=None, stderr=None, r2=None,
+                    quality="too noisy to fit: needs three or more sizes, each with a positive "
+                            "finite timing")
+    fit = linregress(x, y)
+    slope, stderr, r2 = float(fit.slope), float(fit.stderr), float(fit.rvalue ** 2)
+    problems = []
+    if not slope > 0:
+        problems.append(f"slope {slope:.3g} is not positive")
+    if not r2 >= SCALING_MIN_R2:
+        problems.append(f"r^2 {r2:.3g} < {SCALING_MIN_R2:g}")
+    if not stderr <= SCALING_MAX_STDERR:
+        problems.append(f"standard error {stderr:.3g} > {SCALING_MAX_STDERR:g}")
+    return dict(exponent=None if problems else slope, raw_exponent=slope, stderr=stderr, r2=r2,
+                quality="too noisy to fit: " + "; ".join(problems) if problems else "ok")
+
+
 def scaling_bench(quick: bool) -> dict:
     """Exponents of bench-lif's loop time in cells and in duration (one thread).
 
     Four sizes each (cells x1/4..x2 of bench-lif at half its duration; 1/4..2x
     its duration at its size), median of three runs; the exponent is the slope
-    of log time against log size (target 1.0 +- 0.1).
+    of log time against log size (target 1.0 +- 0.1), reported with its fit's
+    quality (:func:`fit_exponent`).
     """
     from .network import build_network
     from .scenario import parse_scenario
@@ -371,10 +424,9 @@ def scaling_bench(quick: bool) -> dict:
     net = network(1.0, 2 * base_ms)
     durations = [f * base_ms for f in factors]
     t_dur = [loop_s(net, d) for d in durations]
-    return {"cells": cells, "cells_loop_s": t_cells, "exponent_cells":
-            float(np.polyfit(np.log(cells), np.log(t_cells), 1)[0]),
-            "duration_ms": durations, "duration_loop_s": t_dur, "exponent_duration":
-            float(np.polyfit(np.log(durations), np.log(t_dur), 1)[0])}
+    return {"cells": cells, "cells_loop_s": t_cells, "cells_fit": fit_exponent(cells, t_cells),
+            "duration_ms": durations, "duration_loop_s": t_dur,
+            "duration_fit": fit_exponent(durations, t_dur)}
 
 
 def advise_bench(quick: bool) -> tuple[float | None, str, dict]:
@@ -540,12 +592,18 @@ def format_report(res: dict) -> str:
     lines.append(f"compile {f(res['compile_s'])} s ({d['compile_kind']}); RSS baseline "
                  f"{f(res['baseline_rss_mb'])} MB, growth during bench-lif {f(res['rss_growth_mb'])} MB")
     sc = d["scaling"]
-    lines.append(f"bench-lif scaling exponents (target 1.0 +- 0.1): cells "
-                 f"{sc['exponent_cells']:.3f}, duration {sc['exponent_duration']:.3f}")
+    lines.append("bench-lif scaling exponents (target 1.0 +- 0.1): "
+                 + ", ".join(f"{name} {_exponent_text(sc[name + '_fit'])}" for name in ("cells", "duration")))
     lines.append(f"advice CPU-time ratio (predicted / measured): {f(res['advise_cpu_ratio'])}")
     for key, why in d["reasons"].items():
         lines.append(f"  {key}: n/a - {why}")
     return "\n".join(lines)
+
+
+def _exponent_text(fit: dict) -> str:
+    if fit["exponent"] is None:
+        return fit["quality"]
+    return f"{fit['exponent']:.3f} +- {fit['stderr']:.3f} (r^2 {fit['r2']:.3f})"
 
 
 def to_json(res: dict) -> str:

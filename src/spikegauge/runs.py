@@ -10,6 +10,8 @@ from __future__ import annotations
 import json
 import os
 import tempfile
+import zipfile
+import zlib
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -35,7 +37,7 @@ class Run:
     settings : dict
         Strategy, stepper, dt or tolerances, crossing, delivery, threads.
     status : str
-        ``"ok"`` or ``"diverged"``.
+        ``"ok"``, ``"diverged"``, or ``"failed"`` (a profile point whose run raised an error).
     message : str
         For a diverged run, where and why.
     cost : dict
@@ -99,7 +101,14 @@ class Run:
 
 
 def load_run(directory) -> Run:
-    """Read a run folder written by :meth:`Run.save`."""
+    """Read a run folder written by :meth:`Run.save`.
+
+    Raises
+    ------
+    InputError
+        A file is missing, truncated or unreadable, or ``run.json`` is not a run
+        record (every array of ``spikes.npz`` is read, so a damaged one shows here).
+    """
     d = Path(directory)
     try:
         with np.load(d / "spikes.npz", allow_pickle=False) as z:
@@ -112,16 +121,26 @@ def load_run(directory) -> Run:
         doc = json.loads((d / "run.json").read_text())
     except FileNotFoundError as exc:
         raise InputError(f"{d}: not a run folder (missing {Path(exc.filename).name})") from None
-    except (KeyError, ValueError, OSError) as exc:
-        raise InputError(f"{d}: unreadable run folder ({exc})") from None
+    except (KeyError, ValueError, OSError, EOFError, zipfile.BadZipFile, zlib.error) as exc:
+        # a truncated or overwritten file: a bad zip, a bad CRC, half a JSON document
+        raise InputError(f"{d}: unreadable run folder ({type(exc).__name__}: {exc})") from None
+    if not (isinstance(doc, dict) and isinstance(doc.get("settings"), dict)
+            and isinstance(doc.get("status"), str)):
+        raise InputError(f"{d}: run.json is not a run record (no settings or no status)")
+    if doc.get("n_cells", n_cells) != n_cells:
+        raise InputError(f"{d}: run.json and spikes.npz disagree on the number of cells "
+                         f"({doc.get('n_cells')} and {n_cells})")
     settings = doc.pop("settings", {})
     status = doc.pop("status", "ok")
     message = doc.pop("message", "")
     cost = doc.pop("cost", {})
     for key in ("n_cells", "t_start_ms", "t_stop_ms"):
         doc.pop(key, None)
-    traces = pd.read_csv(d / "traces.csv") if (d / "traces.csv").exists() else None
-    steps = pd.read_csv(d / "steps.csv") if (d / "steps.csv").exists() else None
+    try:
+        traces = pd.read_csv(d / "traces.csv") if (d / "traces.csv").exists() else None
+        steps = pd.read_csv(d / "steps.csv") if (d / "steps.csv").exists() else None
+    except (ValueError, OSError) as exc:  # pandas' parser errors are ValueErrors
+        raise InputError(f"{d}: unreadable run folder ({type(exc).__name__}: {exc})") from None
     return Run(spikes=spikes, n_cells=n_cells, t_start_ms=t_start, t_stop_ms=t_stop,
                group_names=names, group_first=first, settings=settings, status=status,
                message=message, cost=cost, meta=doc, traces=traces, step_trace=steps)

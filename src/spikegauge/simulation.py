@@ -18,6 +18,7 @@ from .errors import InputError
 from .integrate.engine import N_COUNTERS, CellState, SpikeBuffer, WindowArrivals, run_windows
 from .integrate.replay import ReplayRaster
 from .runs import Run
+from .threads import default_threads
 
 STRATEGIES = ("fixed", "global-adaptive", "local-adaptive", "exact")
 
@@ -140,7 +141,9 @@ def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, d
     auto_scale : bool
         Adaptive strategies: measure each state's scale with a short pilot run.
     threads : int, optional
-        Number of numba threads (results are bit-identical for any count).
+        Number of numba threads (results are bit-identical for any count). By
+        default as many as help: :func:`spikegauge.threads.default_threads`
+        (one below 200 cells, never more than the cores other programs leave free).
     t_stop_ms : float, optional
         Stop earlier than the scenario's duration.
     record_cells, record_interval_ms : optional
@@ -187,8 +190,8 @@ def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, d
     threads_before = numba.get_num_threads()
     with CompileTimer() as compiling:
         try:
-            if threads is not None:
-                numba.set_num_threads(int(threads))
+            numba.set_num_threads(int(threads) if threads is not None
+                                  else default_threads(network.n_cells))
             kernel = make_kernel(network, settings, auto_scale=auto_scale, record_steps=record_steps)
             state = CellState.initial(network, getattr(kernel, "scale_table", None))
             warm_up(kernel, state, network)

@@ -1,6 +1,8 @@
 """``spikegauge profile``: reference, sensitivity ladder and sweep of one scenario."""
 from __future__ import annotations
 
+import warnings
+
 import click
 
 from .main import cli
@@ -71,14 +73,20 @@ def profile(scenario, out_dir, sweep_file, quick, seeds, jobs, scheduler, target
             target_mismatch_frac, work_limit_factor, fresh, write_sonata, quiet):
     """Run the reference, the sensitivity ladder and the sweep of SCENARIO; write the profile and its report."""
     from ..profile import run_profile
+    from ..profile.store import DamagedPointWarning
     from ..profile.summary import profile_text
 
     bar = _Bar(quiet)
     try:
-        doc = run_profile(scenario, out_dir, sweep_file=sweep_file, quick=quick, seeds=seeds, jobs=jobs,
-                          scheduler=scheduler, target_jitter_ms=target_jitter_ms,
-                          target_mismatch_frac=target_mismatch_frac, fresh=fresh, progress=bar,
-                          work_limit_factor=work_limit_factor)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", DamagedPointWarning)
+            doc = run_profile(scenario, out_dir, sweep_file=sweep_file, quick=quick, seeds=seeds,
+                              jobs=jobs, scheduler=scheduler, target_jitter_ms=target_jitter_ms,
+                              target_mismatch_frac=target_mismatch_frac, fresh=fresh, progress=bar,
+                              work_limit_factor=work_limit_factor)
+        bar.close()
+        for message in dict.fromkeys(str(w.message) for w in caught):
+            click.echo(f"warning: {message}", err=True)
     except KeyboardInterrupt:
         bar.close()
         stored = _stored_points(out_dir)

@@ -24,7 +24,9 @@ from .main import cli, progress_bar
 @click.option("--t-stop-ms", type=float,
               help="Stop the run at this time (ms), earlier than the scenario's duration_ms "
                    "(default: the whole duration). Drive and network are the same as for the whole run.")
-@click.option("--threads", type=int, help="Number of threads (results do not depend on it).")
+@click.option("--threads", type=int,
+              help="Number of threads (results do not depend on it; default: as many as help, one "
+                   "below 200 cells, never more than the cores other programs leave free).")
 @click.option("--open-loop", "open_loop", type=click.Path(),
               help="Open loop: replay this raster (a run folder, or an NPZ or CSV file of cell, "
                    "time_ms) as the recurrent input instead of the network's own spikes.")

@@ -170,6 +170,14 @@ class ProcessExecutor:
             self._pool = None
 
 
+DASK_EXTRA = "distributed"
+"""The optional extra that installs what ``--scheduler`` needs (pyproject.toml)."""
+
+CONNECT_TIMEOUT_S = 10
+"""Seconds to wait for the scheduler before giving up: a scheduler on a reachable host
+answers within a second; what does not answer in 10 s is a wrong address or a firewall."""
+
+
 class DaskExecutor:
     """Runs tasks on a Dask distributed cluster (``--scheduler ADDRESS``).
 
@@ -177,17 +185,26 @@ class DaskExecutor:
     ----------
     address : str
         The scheduler's address, e.g. ``tcp://10.0.0.5:8786``.
+
+    Raises
+    ------
+    InputError
+        Dask's ``distributed`` package is not installed (the message names the
+        extra to install), or the scheduler cannot be reached within
+        :data:`CONNECT_TIMEOUT_S` (a closed port, a wrong host, a malformed address).
     """
 
     def __init__(self, address: str):
         try:
             from distributed import Client
-        except ImportError:  # pragma: no cover - dask is a declared dependency of the extra
-            raise InputError("--scheduler: needs the 'distributed' package (pip install dask[distributed])") from None
+        except ImportError:
+            raise InputError(f"--scheduler: needs Dask's distributed scheduler, which is not installed; "
+                             f"install it with: pip install \"spikegauge[{DASK_EXTRA}]\"") from None
         try:
-            self._client = Client(address, timeout="20s")
-        except (OSError, TimeoutError, ValueError) as exc:
-            raise InputError(f"--scheduler: cannot reach the Dask scheduler at {address}: {exc}") from None
+            self._client = Client(address, timeout=f"{CONNECT_TIMEOUT_S}s")
+        except Exception as exc:  # refused, timed out, unknown scheme, bad host: all a wrong address
+            why = " ".join(str(exc).split()) or type(exc).__name__
+            raise InputError(f"--scheduler: cannot reach the Dask scheduler at {address}: {why}") from None
         self.description = f"Dask scheduler {address}"
 
     def run(self, tasks):
