@@ -152,7 +152,7 @@ def _machine_free(profile_dir):
 
     # CPU seconds, and the verdict and the fronts ranked by them, depend on the machine;
     # the verdict's rules are tested on constructed tables (tests/test_verdict.py).
-    machine = {"timing", "verdict", "verdict_per_seed", "verdict_statistics", "cpu"}
+    machine = {"timing", "reruns", "verdict", "verdict_per_seed", "verdict_statistics", "cpu"}
 
     def strip(x):
         if isinstance(x, dict):
@@ -191,8 +191,12 @@ def test_profile_resumes_and_executors_agree(tmp_path):
     assert n_points == 1 + 15 + (22 - 1) + 2 * (4 + 6)
 
     # rerun: nothing recomputed, same results
+    first_timing = json.loads((a / "profile.json").read_text())["timing"]
     _invoke(["profile", str(scen), "--out", str(a), "--quiet"])
-    timing = json.loads((a / "profile.json").read_text())["timing"]
+    rerun = json.loads((a / "profile.json").read_text())
+    # the first run's timing stays as it was; the rerun's own is added beside it
+    assert rerun["timing"] == first_timing and len(rerun["reruns"]) == 1
+    timing = rerun["reruns"][-1]
     # the failed point is tried again (its error could have come from the environment)
     assert timing["points_computed"] == 0 and timing["failed_points_retried"] == 2  # and its open-loop twin
     ref_table, ref_doc = _machine_free(a)
@@ -201,7 +205,7 @@ def test_profile_resumes_and_executors_agree(tmp_path):
     for d in sorted((a / "points").iterdir())[:5]:
         shutil.rmtree(d)
     _invoke(["profile", str(scen), "--out", str(a), "--quiet"])
-    assert json.loads((a / "profile.json").read_text())["timing"]["points_computed"] == 5
+    assert json.loads((a / "profile.json").read_text())["reruns"][-1]["points_computed"] == 5
     t2, d2 = _machine_free(a)
     pd.testing.assert_frame_equal(t2, ref_table)
     assert d2 == ref_doc

@@ -312,11 +312,25 @@ def run_profile(scenario_path, out_dir, *, sweep_file=None, quick=False, seeds=1
     doc = evaluate(spec, store, ref_tasks, ref_runs, ladders, table_points, by_digest, out, extra,
                    yardsticks=yardsticks)
     doc["sweep"]["n_runs"] = n_runs
-    doc["timing"] = dict(wall_s=time.perf_counter() - t_start, points_computed=batch.computed,
-                         failed_points_retried=batch.retried,
-                         executor=executor.description)
+    this = dict(wall_s=time.perf_counter() - t_start, points_computed=batch.computed,
+                failed_points_retried=batch.retried, executor=executor.description)
+    doc.update(_timings(out, this, fresh))
     write_profile_json(out, doc)
     return doc
+
+
+def _timings(out: Path, this: dict, fresh: bool) -> dict:
+    """``timing`` of the run that first wrote the profile, and ``reruns``: every later run's own
+    (a rerun that finds its points stored must not pass its seconds off as the profile's)."""
+    import json
+
+    try:
+        old = json.loads((out / "profile.json").read_text())
+    except (OSError, ValueError):
+        old = {}
+    if fresh or "timing" not in old:
+        return dict(timing=this, reruns=[])
+    return dict(timing=old["timing"], reruns=list(old.get("reruns", [])) + [this])
 
 
 def _unscheduled(plans) -> int:

@@ -48,4 +48,7 @@ def profile_text(doc: dict) -> str:
     t = doc.get("timing")
     if t:
         lines.append(f"{t['points_computed']} runs computed in {t['wall_s']:.1f} s ({t['executor']}).")
+    for r in doc.get("reruns", [])[-1:]:
+        lines.append(f"This rerun: {r['points_computed']} runs computed in {r['wall_s']:.1f} s; the others "
+                     f"were stored.")
     return "\n".join(lines)
