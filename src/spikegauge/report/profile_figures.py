@@ -210,17 +210,24 @@ def plot_step_traces(steps: pd.DataFrame, spikes: pd.DataFrame, label: str, n_ce
     return fig
 
 
-def plot_steps_vs_rate(samples: dict) -> Figure:
-    """Steps per cell and ms against the cell's firing rate, one series per local-adaptive setting.
+def plot_steps_vs_rate(samples: dict, max_series: int = 6) -> Figure:
+    """Steps per cell per ms against the cell's firing rate for up to ``max_series``
+    local-adaptive settings (spread over those given; the title says which share is shown).
 
     ``samples`` maps a label to a DataFrame with ``rate_hz`` and ``steps_per_ms``.
     """
-    fig, ax = _new_figure(None, (6.5, 4.2))
-    for i, (label, df) in enumerate(samples.items()):
-        ax.scatter(df["rate_hz"], df["steps_per_ms"], color=COMBO_COLOURS[i % 8], marker=MARKERS[i % 10],
-                   label=label)
+    fig, ax = _new_figure(None, (7.5, 5.2))
+    labels = list(samples)
+    keep = [labels[int(round(i))] for i in np.linspace(0, len(labels) - 1, min(max_series, len(labels)))]
+    colours = [OKABE_ITO[k] for k in ("blue", "vermillion", "green", "purple", "black", "orange")]
+    for i, label in enumerate(dict.fromkeys(keep)):
+        df = samples[label]
+        ax.scatter(df["rate_hz"], df["steps_per_ms"], color=colours[i % len(colours)],
+                   marker=MARKERS[i % len(MARKERS)], label=label)
     ax.set_xlabel("firing rate (Hz)")
-    ax.set_ylabel("accepted steps per cell and ms")
-    ax.legend(fontsize="x-small")
-    ax.set_title("Local adaptive: steps against firing rate", fontsize="medium")
+    ax.set_ylabel("accepted steps per cell per ms")
+    ax.legend(fontsize="x-small", loc="upper left", bbox_to_anchor=(0.0, -0.13), ncol=2, frameon=False)
+    shown = len(dict.fromkeys(keep))
+    ax.set_title("Local adaptive: steps against firing rate"
+                 + (f" ({shown} of {len(labels)} settings)" if shown < len(labels) else ""), fontsize="medium")
     return fig

@@ -217,6 +217,28 @@ def build_report(profile_dir) -> list[Path]:
     else:
         rep.p("No cell mismatches open loop at the finest setting of any family.")
 
+    yard = doc.get("yardstick")
+    if yard:
+        rep.h(2, "Statistical fidelity")
+        rep.p(f"Past the divergence time a setting can still be asked whether it changed the activity's "
+              f"statistics. The yardstick is their spread over {yard['k']} runs of the reference with "
+              f"every initial voltage moved a little; a setting passes when each statistic of its run lies "
+              f"within the prediction interval of those runs (ISI distributions: Kolmogorov–Smirnov "
+              f"distance against the reference runs' own pairs), Holm-corrected at "
+              f"{fmt(100 * yard['family_alpha'])} % family-wise.")
+        vs = doc.get("verdict_statistics")
+        if vs:
+            rep.p(f"Statistical verdict: {vs['text']}.")
+        rep.table(["statistic", "reference mean", "spread (sd)"],
+                  [[n, fmt(v["mean"]), fmt(v["sd"])] for n, v in yard["statistics"].items()])
+        if "statistics_pass" in rows:
+            ran = rows[rows["status"] == "ok"]
+            failed = ran[~ran["statistics_pass"].astype(bool)]
+            rep.p(f"{int(ran['statistics_pass'].astype(bool).sum())} of {len(ran)} settings that ran to the "
+                  f"end pass." + (" Failing: " + "; ".join(
+                      f"{r['label']} ({r['statistics_failed']})" for _, r in failed.iterrows()) + "."
+                      if len(failed) else ""))
+
     rep.h(2, "How the sweep ran")
     rep.p(_sweep_story(rows, doc))
     unusual = rows[(rows["origin"] != "sweep") | rows["status"].isin(["stopped", "skipped"])] \
