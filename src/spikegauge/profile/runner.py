@@ -223,7 +223,7 @@ def run_profile(scenario_path, out_dir, *, sweep_file=None, quick=False, seeds=1
     progress = _Progress(progress)
     progress.add(len(spec.seeds) * (len(ref_settings) + N_PROBES_EXPECTED + len(spec.sweep)))
     batch = _Batch(store, executor, fresh, progress.step)
-    points = {s: {} for s in spec.seeds}   # seed -> {id(entry): task}
+    points = {s: {} for s in spec.seeds}   # seed -> {id(entry): (task, open-loop task)}
     pilots = {s: [] for s in spec.seeds}   # seed -> [(pilot, task)]
     by_digest = {}
     try:
@@ -273,7 +273,7 @@ def run_profile(scenario_path, out_dir, *, sweep_file=None, quick=False, seeds=1
                     if pilot.status == "pending":
                         run = by_digest[task["digest"]]
                         pilot.status, pilot.t_reached_ms = run.status, run.t_stop_ms
-                        pilot.work = run.cost.get("rhs_evals", math.nan) + run.cost.get("newton_iters", 0)
+                        pilot.work = _work(run)
             for s, e, task, twin in round_entries:
                 ref, ref_digest = ref_runs[s][-1], ref_tasks[s][-1]["digest"]
                 run, open_run = by_digest[task["digest"]], by_digest[twin["digest"]]
@@ -281,8 +281,7 @@ def run_profile(scenario_path, out_dir, *, sweep_file=None, quick=False, seeds=1
                                       ladders[s]["judged_window_ms"], COMPARE_OPTIONS)
                 open_doc = _comparison_doc(store, twin["digest"], open_run, ref, ref_digest,
                                            ref.t_stop_ms - ref.t_start_ms, COMPARE_OPTIONS)
-                plans[s].record(e, run.status, run.cost.get("rhs_evals", math.nan)
-                                + run.cost.get("newton_iters", 0),
+                plans[s].record(e, run.status, _work(run),
                                 meets_target(run, doc, spec) and meets_target(open_run, open_doc, spec))
             for s in spec.seeds:
                 plans[s].close_round()
@@ -317,6 +316,11 @@ def run_profile(scenario_path, out_dir, *, sweep_file=None, quick=False, seeds=1
     doc.update(_timings(out, this, fresh))
     write_profile_json(out, doc)
     return doc
+
+
+def _work(run) -> float:
+    """Right-hand-side evaluations plus Newton iterations of a run (NaN for a failed one)."""
+    return run.cost.get("rhs_evals", math.nan) + run.cost.get("newton_iters", 0)
 
 
 def _timings(out: Path, this: dict, fresh: bool) -> dict:
