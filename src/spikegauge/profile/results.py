@@ -155,11 +155,13 @@ def _strip_times(cost: dict) -> dict:
     return {k: v for k, v in cost.items() if k not in TIME_COLUMNS and k != "cell_steps_per_s"}
 
 
-def reference_doc(spec, seed, ref_tasks, ref_runs) -> dict:
-    """The reference of one seed and its uncertainty (``profile.json``'s ``references``)."""
+def reference_doc(spec, seed, ref_tasks, ref_runs, check_run=None) -> dict:
+    """The reference of one seed and its uncertainty (``profile.json``'s ``references``);
+    ``check_run``: the looser reference setting replaying the reference's raster, or None."""
     runs = ref_runs[seed]
     ref = runs[-1]
-    unc = reference_uncertainty(runs, spec.target_jitter_ms, spec.target_mismatch_frac, **COMPARE_OPTIONS)
+    unc = reference_uncertainty(runs, spec.target_jitter_ms, spec.target_mismatch_frac,
+                                open_loop_run=check_run, **COMPARE_OPTIONS)
     return dict(seed=seed, settings=[t["settings"] for t in ref_tasks[seed]],
                 digests=[t["digest"] for t in ref_tasks[seed]], status=ref.status,
                 message=ref.message, spikes=int(len(ref.spikes)), mean_rate_hz=ref.mean_rate_hz,
@@ -177,7 +179,7 @@ def ladder_doc(ref, probe_tasks, by_digest, seed) -> dict:
 
 
 def evaluate(spec, store, ref_tasks, ref_runs, ladders, points, by_digest, out_dir, extra=None,
-             yardsticks=None) -> dict:
+             yardsticks=None, ref_checks=None) -> dict:
     """Compare every point with its reference; write ``results.csv``; return the profile document.
 
     ``points[seed]`` lists ``(entry, task, open_loop_task)`` of the seed's sweep in table order;
@@ -187,7 +189,7 @@ def evaluate(spec, store, ref_tasks, ref_runs, ladders, points, by_digest, out_d
     k = 0
     for seed in spec.seeds:
         ref, ref_digest = ref_runs[seed][-1], ref_tasks[seed][-1]["digest"]
-        references.append(reference_doc(spec, seed, ref_tasks, ref_runs))
+        references.append(reference_doc(spec, seed, ref_tasks, ref_runs, (ref_checks or {}).get(seed)))
         window = ladders[seed]["judged_window_ms"]
         for entry, task, twin in points[seed]:
             run, open_run = by_digest[task["digest"]], by_digest[twin["digest"]]

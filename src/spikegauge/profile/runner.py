@@ -231,6 +231,10 @@ def run_profile(scenario_path, out_dir, *, sweep_file=None, quick=False, seeds=1
         flat = [t for s in spec.seeds for t in ref_tasks[s]]
         runs = batch.run(flat)
         ref_runs = {s: runs[i * len(ref_settings):(i + 1) * len(ref_settings)] for i, s in enumerate(spec.seeds)}
+        check_tasks = {s: _task(spec, s, ref_settings[0], open_loop=(ref_tasks[s][-1]["digest"], ref_runs[s][-1]))
+                       for s in spec.seeds if len(ref_settings) > 1 and ref_runs[s][-1].status == "ok"}
+        progress.add(len(check_tasks))
+        ref_checks = dict(zip(check_tasks, batch.run(list(check_tasks.values()))))
         probes = {s: ladder_probes(networks[s], ref_runs[s][-1], spec.target_jitter_ms)
                   if ref_runs[s][-1].status == "ok" else [] for s in spec.seeds}
         probe_tasks = {s: [_task(spec, s, ref_settings[-1], probe=p) for p in probes[s]]
@@ -309,7 +313,7 @@ def run_profile(scenario_path, out_dir, *, sweep_file=None, quick=False, seeds=1
                          for s in spec.seeds for p, _ in pilots[s]],
                  work_limit_factor=float(work_limit_factor))
     doc = evaluate(spec, store, ref_tasks, ref_runs, ladders, table_points, by_digest, out, extra,
-                   yardsticks=yardsticks)
+                   yardsticks=yardsticks, ref_checks=ref_checks)
     doc["sweep"]["n_runs"] = n_runs
     this = dict(wall_s=time.perf_counter() - t_start, points_computed=batch.computed,
                 failed_points_retried=batch.retried, executor=executor.description)
