@@ -90,3 +90,26 @@ def lif_network(params, y0, t_stop_ms, synapses=(), events=(), poisson=(), seed=
         seed=seed,
         t_stop_ms=float(t_stop_ms),
     )
+
+
+def assert_block_loop_identical(kernel, net, t_stop_ms: float, layouts, **options) -> None:
+    """Run the block loop once per (threads, cells per block) layout and check that spikes and
+    counters are bit-identical (determinism, DESIGN.md); ``options`` go to ``run_grid``."""
+    import numba
+
+    from spikegauge.integrate.engine import CellState
+    from spikegauge.integrate.fixed_block import run_grid
+
+    before = numba.get_num_threads()
+    runs = []
+    try:
+        for threads, tile in layouts:
+            numba.set_num_threads(threads)
+            runs.append(run_grid(kernel, net, t_stop_ms, CellState.initial(net), tile=tile, **options))
+    finally:
+        numba.set_num_threads(before)
+    assert runs[0].cell.size > 100
+    for other in runs[1:]:
+        np.testing.assert_array_equal(other.cell, runs[0].cell)
+        np.testing.assert_array_equal(other.time_ms.view(np.int64), runs[0].time_ms.view(np.int64))
+        assert other.counters == runs[0].counters

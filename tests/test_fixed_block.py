@@ -9,10 +9,10 @@ checked on a network spread over several blocks.
 """
 from __future__ import annotations
 
-import numba
 import numpy as np
 import pytest
 
+from _netutil import assert_block_loop_identical
 from spikegauge.integrate.engine import CellState, run_windows
 from spikegauge.integrate.fixed import FixedStepKernel
 from spikegauge.integrate.fixed_block import run_grid
@@ -115,19 +115,7 @@ def test_stop_time_off_the_grid_cuts_the_last_step():
 def test_bit_identical_for_any_thread_count_and_block_size(stepper, crossing):
     net = build_network(parse_scenario(_two_group_text(t_ref_ms=2.0, size=150), source="inline.toml"))
     kernel = FixedStepKernel(net, 0.1, stepper, crossing, "grid")
-    before = numba.get_num_threads()
-    runs = []
-    try:
-        for threads, tile in ((1, 256), (2, 16), (2, 7), (1, 7)):
-            numba.set_num_threads(threads)
-            runs.append(run_grid(kernel, net, 80.0, CellState.initial(net), tile=tile))
-    finally:
-        numba.set_num_threads(before)
-    assert runs[0].cell.size > 100
-    for other in runs[1:]:
-        np.testing.assert_array_equal(other.cell, runs[0].cell)
-        np.testing.assert_array_equal(other.time_ms.view(np.int64), runs[0].time_ms.view(np.int64))
-        assert other.counters == runs[0].counters
+    assert_block_loop_identical(kernel, net, 80.0, ((1, 256), (2, 16), (2, 7), (1, 7)))
 
 
 def test_traces_and_progress_see_every_piece():

@@ -29,13 +29,12 @@ from click.testing import CliRunner
 from scipy.stats import linregress
 
 import spikegauge
-from _netutil import RECEPTOR_EXC, RECEPTOR_INH, lif_network, lif_params, poisson_drive
+from _netutil import (RECEPTOR_EXC, RECEPTOR_INH, assert_block_loop_identical, lif_network, lif_params,
+                      poisson_drive)
 from spikegauge.analysis.matching import match_rasters
 from spikegauge.analysis.rasters import as_raster
 from spikegauge.cli.main import cli
-from spikegauge.integrate.engine import CellState
 from spikegauge.integrate.fixed import FixedStepKernel
-from spikegauge.integrate.fixed_block import run_grid
 from spikegauge.integrate.reference import ROOT_RTOL
 from spikegauge.integrate.replay import ReplayRaster, emission_steps, raster_digest
 from spikegauge.simulation import replay_raster
@@ -302,19 +301,7 @@ def test_open_loop_block_loop_is_bit_identical_across_thread_counts_and_blocks(s
     net, ref = strong_network
     replay = replay_raster(ref, net, 40.0)
     kernel = FixedStepKernel(net, 0.1, stepper, crossing, "grid")
-    before = numba.get_num_threads()
-    runs = []
-    try:
-        for threads, tile in ((1, 256), (2, 32), (2, 7)):
-            numba.set_num_threads(threads)
-            runs.append(run_grid(kernel, net, 40.0, CellState.initial(net), tile=tile, replay=replay))
-    finally:
-        numba.set_num_threads(before)
-    assert runs[0].cell.size > 100
-    for other in runs[1:]:
-        np.testing.assert_array_equal(other.cell, runs[0].cell)
-        np.testing.assert_array_equal(other.time_ms.view(np.int64), runs[0].time_ms.view(np.int64))
-        assert other.counters == runs[0].counters
+    assert_block_loop_identical(kernel, net, 40.0, ((1, 256), (2, 32), (2, 7)), replay=replay)
 
 
 # ---------------------------------------------------------------------------
