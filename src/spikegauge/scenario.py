@@ -32,7 +32,7 @@ from .distributions import ValueSpec, check_sign, finite_number, parse_value_spe
 from .errors import InputError
 from .formats.sonata_edges import PATHWAY_KEYS as SONATA_PATHWAY_KEYS
 from .formats.sonata_edges import is_hdf5, pathway_edge_columns, refuse_sonata_keys
-from .models import MODELS, max_params, max_states
+from .models import BUILT_IN, MODELS, max_params, max_states, model_from_text
 from .models.base import RECEPTOR_EXC, RECEPTOR_INH, ModelSpec
 
 STRATEGIES = ("fixed", "global-adaptive", "local-adaptive", "exact")
@@ -89,9 +89,15 @@ class Group:
     model: str
     parameters: dict = field(default_factory=dict)
     initial: dict = field(default_factory=dict)
+    model_text: str | None = None
+    """Text of the group's model file; None for a built-in model."""
+    model_label: str = ""
+    """Where the model file came from (its path), for messages."""
 
     @property
     def spec(self) -> ModelSpec:
+        if self.model_text is not None:  # compiled once per process, wherever the scenario travels
+            return model_from_text(self.model_text, self.model_label)
         return MODELS[self.model]
 
 
@@ -223,8 +229,12 @@ class Scenario:
 
     @property
     def digest(self) -> str:
-        """SHA-256 of the scenario text (files it refers to are not included)."""
-        return hashlib.sha256(self.text.encode()).hexdigest()
+        """SHA-256 of the scenario text and of the model files it uses (other files it refers to are not included)."""
+        h = hashlib.sha256(self.text.encode())
+        for g in self.groups:
+            if g.model_text is not None:
+                h.update(g.model_text.encode())
+        return h.hexdigest()
 
     def expected_synapses(self) -> float:
         """Expected total number of connections."""
@@ -443,8 +453,19 @@ class _Parser:
         if not name:
             raise self.err(f"{w}.name", "must not be empty")
         size = self.integer(f"{w}.size", t["size"], positive=True)
-        model = self.string(f"{w}.model", t["model"], tuple(MODELS))
-        spec = MODELS[model]
+        model_text, model_label = None, ""
+        if isinstance(t["model"], str) and t["model"].endswith(".toml"):
+            path = (self.base_dir / t["model"]).resolve()
+            try:
+                model_text = path.read_text()
+            except (OSError, UnicodeDecodeError) as exc:
+                raise self.err(f"{w}.model", f"cannot read the model file {path} ({exc.__class__.__name__})") from None
+            model_label = str(path)
+            spec = model_from_text(model_text, model_label)
+            model = spec.name
+        else:
+            model = self.string(f"{w}.model", t["model"], BUILT_IN)
+            spec = MODELS[model]
 
         params_raw = t.get("parameters", {})
         fixed = tuple(spec.extra.get("fixed_params", ()))
@@ -457,10 +478,17 @@ class _Parser:
 
         self.keys(f"{w}.parameters", params_raw, keys, hint_for=param_hint)
         params = {}
+        ranges = spec.extra.get("param_ranges", {})
         for key, raw in params_raw.items():
             where = f"{w}.parameters.{key}"
-            positive, nonnegative = _param_sign(key)
+            # a model file's parameters keep the ranges the file declares, not the name-based rules
+            positive, nonnegative = _param_sign(key) if model_text is None else (False, False)
             params[key] = self.value(where, raw, size, positive=positive, nonnegative=nonnegative)
+            if key in ranges:
+                lo, hi = params[key].support()
+                if lo < ranges[key][0] or hi > ranges[key][1]:
+                    raise self.err(where, f"values must lie within [{_fmt(ranges[key][0])}, {_fmt(ranges[key][1])}] "
+                                          f"(declared in {model_label}), got the range [{_fmt(lo)}, {_fmt(hi)}]")
 
         init_raw = t.get("initial", {})
         states = tuple(spec.state_names)
@@ -477,7 +505,7 @@ class _Parser:
                 raise self.err(where, f"values must lie within [{_fmt(spec.lower[k])}, {_fmt(spec.upper[k])}] "
                                       f"(the bounds of {model}), got the range [{_fmt(lo)}, {_fmt(hi)}]")
             initial[key] = vspec
-        return Group(name, size, model, params, initial)
+        return Group(name, size, model, params, initial, model_text, model_label)
 
     def group_ref(self, where: str, raw, groups) -> int:
         names = [g.name for g in groups]

@@ -12,7 +12,13 @@ code  name                 module
 2     ``adex``             :mod:`~spikegauge.models.adex`
 3     ``hh-squid``         :mod:`~spikegauge.models.hh_squid`
 4     ``hh-interneuron``   :mod:`~spikegauge.models.hh_interneuron`
+5...  model files          :mod:`~spikegauge.models.codegen`
 ====  ===================  ==========================================
+
+Model files (:mod:`~spikegauge.models.model_file`) join the registry when a
+scenario or a command loads them (:func:`load_model_file`,
+:func:`model_from_text`): codes from 5 on, in the order this process loads
+them.
 
 The table functions return arrays indexed by model code, padded past each
 model's own states so that drivers can index them with ``cell_model``.
@@ -34,22 +40,66 @@ from __future__ import annotations
 import numpy as np
 import scipy.optimize
 
+from pathlib import Path
+
 from .._numba import jit
 from ..errors import ComputationError, InputError
 from . import adex, hh_interneuron, hh_squid, lif_conductance, lif_current
 from .base import ModelSpec
+from .generated import FIRST_CODE, MAX_MODEL_FILES
 from .kernels import jac, rhs, split
 
-_BY_CODE: tuple[ModelSpec, ...] = (
+_BY_CODE: list[ModelSpec] = [
     lif_current.SPEC,
     lif_conductance.SPEC,
     adex.SPEC,
     hh_squid.SPEC,
     hh_interneuron.SPEC,
-)
+]
+assert len(_BY_CODE) == FIRST_CODE
+
+BUILT_IN: tuple[str, ...] = tuple(spec.name for spec in _BY_CODE)
+"""Names of the built-in models."""
 
 MODELS: dict[str, ModelSpec] = {spec.name: spec for spec in _BY_CODE}
-"""Every model by its scenario name."""
+"""Every model by its scenario name: the built-in ones and the model files loaded so far."""
+
+_BY_DIGEST: dict[str, ModelSpec] = {}
+
+
+def model_from_text(text: str, label: str) -> ModelSpec:
+    """The model of a model file's text, compiled (or loaded from the cache) once per process.
+
+    ``label`` names the file in error messages. Raises InputError for a bad
+    file (before any compilation) or a name taken by a built-in model.
+    """
+    from .codegen import compile_model
+    from .model_file import read_model_text
+
+    definition = read_model_text(text, label)
+    known = _BY_DIGEST.get(definition.digest)
+    if known is not None:
+        return known
+    if definition.name in BUILT_IN:
+        raise InputError(f"{label}: model.name: {definition.name!r} is a built-in model; choose another name")
+    slot = len(_BY_CODE) - FIRST_CODE
+    if slot >= MAX_MODEL_FILES:
+        raise InputError(f"{label}: this process has loaded {MAX_MODEL_FILES} model files, the most it can hold")
+    spec = compile_model(definition, slot)
+    _BY_CODE.append(spec)
+    _BY_DIGEST[definition.digest] = spec
+    MODELS[spec.name] = spec
+    return spec
+
+
+def load_model_file(path) -> ModelSpec:
+    """The model of the model file at ``path`` (see :func:`model_from_text`)."""
+    path = Path(path)
+    try:
+        text = path.read_text()
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"{path}: cannot read the model file ({exc.__class__.__name__}: {exc})") from None
+    return model_from_text(text, str(path))
 
 
 def get_model(name: str) -> ModelSpec:
@@ -197,7 +247,10 @@ def rest_state(spec: ModelSpec, params) -> np.ndarray:
     if p.ndim != 1 or p.size < spec.n_params:
         raise ValueError(f"{spec.name} needs a parameter vector of at least {spec.n_params} values")
     n = spec.n_states
-    y0 = steady_state_at(spec, p[None, :], np.array([p[spec.extra["rest_guess_slot"]]]))[0]
+    if "initial" in spec.extra:  # a model file: start from its own initial values
+        y0 = spec.extra["initial"](p[None, :], {})[0]
+    else:
+        y0 = steady_state_at(spec, p[None, :], np.array([p[spec.extra["rest_guess_slot"]]]))[0]
 
     def fun(y):
         out = np.empty(n)

@@ -20,8 +20,9 @@ since with those slopes in b an exponential step blows up on the upswing
 
 ``clamped`` (bool) is the refractory clamp: dV/dt = 0, row 0 of J is zero,
 a_0 = b_0 = 0; every other state keeps evolving. Codes: 0 lif-current,
-1 lif-conductance, 2 adex, 3 hh-squid, 4 hh-interneuron. An unknown code
-leaves the outputs untouched (codes are validated in Python, once).
+1 lif-conductance, 2 adex, 3 hh-squid, 4 hh-interneuron; codes from 5 on
+are model files, whose kernels are called through
+:mod:`spikegauge.models.generated` (codes are validated in Python, once).
 
 A plain if/elif keeps one compiled specialisation for every model, which is
 what lets a sweep compile once per strategy rather than once per model; the
@@ -32,7 +33,7 @@ from __future__ import annotations
 import numpy as np
 
 from .._numba import jit
-from . import adex, hh_interneuron, hh_squid, lif_conductance, lif_current
+from . import adex, generated, hh_interneuron, hh_squid, lif_conductance, lif_current
 
 
 @jit
@@ -48,6 +49,8 @@ def rhs(code, y, p, clamped, dydt):
         hh_squid.rhs(y, p, clamped, dydt)
     elif code == 4:
         hh_interneuron.rhs(y, p, clamped, dydt)
+    elif code >= generated.FIRST_CODE:
+        generated.rhs(code, y, p, clamped, dydt)
 
 
 @jit
@@ -63,6 +66,8 @@ def jac(code, y, p, clamped, J):
         hh_squid.jac(y, p, clamped, J)
     elif code == 4:
         hh_interneuron.jac(y, p, clamped, J)
+    elif code >= generated.FIRST_CODE:
+        generated.jac(code, y, p, clamped, J)
 
 
 @jit
@@ -78,6 +83,8 @@ def split(code, y, p, clamped, a, b):
         hh_squid.split(y, p, clamped, a, b)
     elif code == 4:
         hh_interneuron.split(y, p, clamped, a, b)
+    elif code >= generated.FIRST_CODE:
+        generated.split(code, y, p, clamped, a, b)
 
 
 @jit
@@ -93,6 +100,8 @@ def reset(code, y, p):
         hh_squid.reset(y, p)
     elif code == 4:
         hh_interneuron.reset(y, p)
+    elif code >= generated.FIRST_CODE:
+        generated.reset(code, y, p)
 
 
 N_DERIVED = 1

@@ -130,6 +130,8 @@ def _group_params(seed: int, gi: int, group: Group) -> np.ndarray:
     for key, vspec in group.parameters.items():
         slot = slots[key]
         out[:, slot] = vspec.sample(stream(seed, STREAM_PARAMS, gi, slot), group.size)
+    if "derive" in spec.extra:  # a model file: threshold, reset flag, refractory period per cell
+        spec.extra["derive"](out)
     return out
 
 
@@ -167,9 +169,13 @@ def initial_state(spec: ModelSpec, params: np.ndarray, given: dict) -> np.ndarra
         the voltage is given, each other state not given starts at its steady
         value at that voltage, ``-a_i / b_i`` of the model's quasi-linear split
         (exact for states linear in themselves: gates, adaptation, synapses),
-        so e.g. Hodgkin–Huxley gates start at x_inf(V0).
+        so e.g. Hodgkin–Huxley gates start at x_inf(V0). A model file's
+        states not given start at the file's initial values (numbers, or
+        expressions of the parameters and the spike state).
     """
     n = params.shape[0]
+    if "initial" in spec.extra:  # a model file gives its own initial values
+        return spec.extra["initial"](params, given)
     quiet = params.copy()
     quiet[:, P_IEXT] = 0.0
     if 0 in given:

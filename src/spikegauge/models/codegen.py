@@ -1,0 +1,272 @@
+"""From a checked model file to compiled kernels and a :class:`ModelSpec`.
+
+:func:`compile_model` differentiates the right-hand side with sympy (the
+Jacobian for implicit steppers, its diagonal for the exponential-Euler split
+f_i = a_i + b_i y_i with b_i = d f_i / d y_i), writes the four kernels of
+:mod:`spikegauge.models.generated` as Python source into the kernel cache
+folder (file name from a hash of the model text and of this generator), and
+compiles them as numba ``cfunc``\\ s cached on disk, so a second run of the
+same model file loads them instead of compiling. The spec it returns carries
+the per-cell parameter derivation (threshold, refractory period) and the
+initial values as numpy functions of the parameters.
+
+Layout of a model file's cell (the contract of :mod:`spikegauge.models.base`):
+state 0 is the spike state, the others follow in the file's order; parameter
+slot ``P_IEXT`` is the file's current parameter, ``P_VTH`` and ``P_TREF``
+hold the threshold and refractory period evaluated per cell, ``P_VRESET`` is
+0 when the model resets and NaN when it does not (the integrators read it as
+that flag only), and the file's other parameters follow in its order.
+"""
+from __future__ import annotations
+
+import hashlib
+import importlib.util
+import math
+import os
+import sys
+import tempfile
+from pathlib import Path
+
+import numba
+import numpy as np
+import sympy
+from sympy.printing.pycode import PythonCodePrinter
+
+from .base import N_COMMON_PARAMS, P_IEXT, P_TREF, P_VRESET, P_VTH, ModelSpec, ParamInfo
+from .expressions import safe_ratio, safe_ratio_slope
+from .generated import FIRST_CODE, install
+from .model_file import ModelDefinition
+
+GENERATOR_VERSION = "1"
+"""Part of the generated file's name: bump when the generated code changes form."""
+
+DERIVED_KEYS = ("spike.threshold", "spike.reset", "spike.refractory")
+"""Keys of the parameter slots P_VTH, P_VRESET, P_TREF of a model file (derived, not set by scenarios)."""
+
+PLACEHOLDER_SCALE = 1.0
+"""Scale of a state the file gives none for, until a pilot run measures it."""
+
+
+class _Printer(PythonCodePrinter):
+    """Python source that numba compiles: math functions, our helpers for the rest."""
+
+    def _print_safe_ratio(self, e):
+        return f"safe_ratio({self._print(e.args[0])})"
+
+    def _print_safe_ratio_slope(self, e):
+        return f"safe_ratio_slope({self._print(e.args[0])})"
+
+    def _print_Heaviside(self, e):
+        return f"step({self._print(e.args[0])})"
+
+    def _print_sign(self, e):
+        return f"sign({self._print(e.args[0])})"
+
+
+def _local(name: str) -> str:
+    return f"m_{name}"
+
+
+def _ordered_states(model: ModelDefinition) -> list:
+    return [model.spike_state] + [s.name for s in model.states if s.name != model.spike_state]
+
+
+def _ordered_params(model: ModelDefinition) -> list:
+    return [model.current] + [p.name for p in model.parameters if p.name != model.current]
+
+
+def _param_slot(model: ModelDefinition) -> dict:
+    """Parameter name -> slot in the cell's parameter vector."""
+    names = _ordered_params(model)
+    slots = {names[0]: P_IEXT}
+    for k, name in enumerate(names[1:]):
+        slots[name] = N_COMMON_PARAMS + k
+    return slots
+
+
+def generate_source(model: ModelDefinition) -> str:
+    """Python source of the model's four kernels (see :mod:`spikegauge.models.generated`)."""
+    states = _ordered_states(model)
+    slots = _param_slot(model)
+    sym = model.symbols
+    rename = {sym[n]: sympy.Symbol(_local(n), real=True) for n in sym}
+    f = [model.derivatives[s].xreplace(rename) for s in states]
+    y = [rename[sym[s]] for s in states]
+    n = len(states)
+    jac = [[sympy.diff(f[i], y[j]) for j in range(n)] for i in range(n)]
+    diag = [jac[i][i] for i in range(n)]
+    a = [f[i] - diag[i] * y[i] for i in range(n)]
+    reset = {states.index(s): e.xreplace(rename) for s, e in model.reset.items()}
+    printer = _Printer({"fully_qualified_modules": True, "standard": "python3"})
+
+    def loads(exprs, n_state_loads=True):
+        used = set().union(*[e.free_symbols for e in exprs]) if exprs else set()
+        lines = []
+        for k, s in enumerate(states):
+            if rename[sym[s]] in used and n_state_loads:
+                lines.append(f"    {_local(s)} = y[{k} * ys]")
+        for name, slot in slots.items():
+            if rename[sym[name]] in used:
+                lines.append(f"    {_local(name)} = p[{slot} * ps]")
+        return lines
+
+    def body(exprs, targets):
+        temps, reduced = sympy.cse(exprs, symbols=sympy.numbered_symbols("t_"))
+        lines = loads([e for _, e in temps] + list(reduced))
+        lines += [f"    {t} = {printer.doprint(e)}" for t, e in temps]
+        lines += [f"    {target} = {printer.doprint(e)}" for target, e in zip(targets, reduced)]
+        return lines
+
+    out = [
+        f'"""Kernels of model file {model.name!r} (generated from text sha256 {model.digest[:16]})."""',
+        "import math",
+        "from numba import cfunc",
+        "from spikegauge.models.generated import (SIG_JAC, SIG_RESET, SIG_RHS, SIG_SPLIT, safe_ratio,",
+        "                                         safe_ratio_slope, sign, step)",
+        "",
+        "",
+        "@cfunc(SIG_RHS, cache=True, error_model='numpy')",
+        "def rhs(y, ys, p, ps, clamped, d, ds):",
+    ]
+    out += body(f, [f"f{i}" for i in range(n)])
+    out.append("    d[0] = 0.0 if clamped else f0")
+    out += [f"    d[{i} * ds] = f{i}" for i in range(1, n)]
+    out += ["", "", "@cfunc(SIG_JAC, cache=True, error_model='numpy')",
+            "def jac(y, ys, p, ps, clamped, J, js0, js1):"]
+    flat = [jac[i][j] for i in range(n) for j in range(n)]
+    out += body(flat, [f"j{i}_{j}" for i in range(n) for j in range(n)])
+    for i in range(n):
+        for j in range(n):
+            value = f"0.0 if clamped else j0_{j}" if i == 0 else f"j{i}_{j}"
+            out.append(f"    J[{i} * js0 + {j} * js1] = {value}")
+    out += ["", "", "@cfunc(SIG_SPLIT, cache=True, error_model='numpy')",
+            "def split(y, ys, p, ps, clamped, a, as_, b, bs):"]
+    out += body(a + diag, [f"a{i}" for i in range(n)] + [f"b{i}" for i in range(n)])
+    out.append("    a[0] = 0.0 if clamped else a0")
+    out.append("    b[0] = 0.0 if clamped else b0")
+    out += [f"    a[{i} * as_] = a{i}\n    b[{i} * bs] = b{i}" for i in range(1, n)]
+    out += ["", "", "@cfunc(SIG_RESET, cache=True, error_model='numpy')", "def reset(y, ys, p, ps):"]
+    if reset:
+        keys = sorted(reset)
+        out += body([reset[k] for k in keys], [f"r{k}" for k in keys])
+        out += [f"    y[{k} * ys] = r{k}" for k in keys]
+    else:
+        out.append("    return")
+    return "\n".join(out) + "\n"
+
+
+def _generated_dir() -> Path:
+    return Path(numba.config.CACHE_DIR) / "model-files"
+
+
+def _write_once(path: Path, text: str) -> None:
+    """Write ``text`` to ``path`` unless it already holds it (keeps numba's cache stamp), atomically."""
+    if path.exists() and path.read_text() == text:
+        return
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(dir=path.parent, suffix=".tmp")
+    with os.fdopen(fd, "w") as fh:
+        fh.write(text)
+    os.replace(tmp, path)
+
+
+def _load_module(model: ModelDefinition, source: str):
+    key = hashlib.sha256((GENERATOR_VERSION + numba.__version__ + source).encode()).hexdigest()[:20]
+    name = f"spikegauge_model_{key}"
+    if name in sys.modules:
+        return sys.modules[name]
+    path = _generated_dir() / f"{name}.py"
+    _write_once(path, source)
+    spec = importlib.util.spec_from_file_location(name, path)
+    module = importlib.util.module_from_spec(spec)
+    sys.modules[name] = module
+    spec.loader.exec_module(module)
+    return module
+
+
+_NUMPY_FUNCTIONS = [{
+    "safe_ratio": lambda x: np.where(np.abs(x) < 1e-5, 1.0 + x * (0.5 + x / 12.0),
+                                     -x / np.expm1(-np.where(x == 0, 1.0, x))),
+}, "numpy"]
+
+
+def _per_cell(expr, names: list):
+    """numpy function of parameter columns (n,) -> (n,) for an expression of those names."""
+    fn = sympy.lambdify([sympy.Symbol(n, real=True) for n in names], expr, modules=_NUMPY_FUNCTIONS)
+    return lambda *cols: np.broadcast_to(np.asarray(fn(*cols), dtype=np.float64), cols[0].shape).copy()
+
+
+def compile_model(model: ModelDefinition, slot: int) -> ModelSpec:
+    """Compile a model file's kernels (or load them from the cache) into table row ``slot``.
+
+    Returns the model's :class:`ModelSpec` with code ``FIRST_CODE + slot``.
+    """
+    source = generate_source(model)
+    module = _load_module(model, source)
+    install(slot, (module.rhs.address, module.jac.address, module.split.address, module.reset.address))
+
+    states = _ordered_states(model)
+    by_name = {s.name: s for s in model.states}
+    pnames = _ordered_params(model)
+    slots = _param_slot(model)
+    pinfo = {p.name: p for p in model.parameters}
+    params = [ParamInfo(model.current, P_IEXT, pinfo[model.current].default,
+                        "constant external current; bias and step drives add to it")]
+    params += [ParamInfo(key, s, math.nan, doc) for key, s, doc in (
+        (DERIVED_KEYS[0], P_VTH, "threshold of the spike state (from [spike] threshold)"),
+        (DERIVED_KEYS[1], P_VRESET, "0 when the model resets at a spike, NaN when it does not"),
+        (DERIVED_KEYS[2], P_TREF, "refractory hold (ms, from [spike] refractory)"))]
+    params += [ParamInfo(name, slots[name], pinfo[name].default, "") for name in pnames[1:]]
+
+    threshold = _per_cell(model.threshold, pnames)
+    refractory = _per_cell(model.refractory, pnames) if model.refractory is not None else None
+    has_reset = bool(model.reset)
+
+    def derive(rows: np.ndarray) -> None:
+        """Fill the derived slots of parameter rows (n, >= n_params) in place."""
+        cols = [rows[:, slots[n]] for n in pnames]
+        rows[:, P_VTH] = threshold(*cols)
+        rows[:, P_VRESET] = 0.0 if has_reset else math.nan
+        rows[:, P_TREF] = refractory(*cols) if refractory is not None else 0.0
+
+    spike_init = _per_cell(by_name[model.spike_state].initial, pnames)
+    other_init = {s: _per_cell(by_name[s].initial, pnames + [model.spike_state]) for s in states[1:]}
+
+    def initial(rows: np.ndarray, given: dict) -> np.ndarray:
+        """Initial states (n, n_states): ``given`` (index -> values) first, the file's values for the rest."""
+        cols = [rows[:, slots[n]] for n in pnames]
+        y = np.empty((rows.shape[0], len(states)))
+        y[:, 0] = given[0] if 0 in given else spike_init(*cols)
+        for k, s in enumerate(states[1:], start=1):
+            y[:, k] = given[k] if k in given else other_init[s](*cols, y[:, 0])
+        return y
+
+    scale = np.array([by_name[s].scale or PLACEHOLDER_SCALE for s in states])
+    return ModelSpec(
+        name=model.name,
+        code=FIRST_CODE + slot,
+        unit_system=model.units,
+        state_names=tuple(states),
+        params=tuple(sorted(params, key=lambda p: p.slot)),
+        exc_state=states.index(model.excitatory),
+        inh_state=states.index(model.inhibitory),
+        weight_key=model.weight_key,
+        current_key=model.current_key,
+        scale=scale,
+        has_physical_zero=np.array([k > 0 and not s.endswith("_mv") for k, s in enumerate(states)]),
+        lower=np.array([by_name[s].lower for s in states]),
+        upper=np.array([by_name[s].upper for s in states]),
+        doc=model.description or f"model file {model.label}",
+        source=model.source or f"model file {model.label}",
+        extra={
+            "fixed_params": DERIVED_KEYS,
+            "derive": derive,
+            "initial": initial,
+            "definition": model,
+            "scale_given": np.array([by_name[s].scale is not None for s in states]),
+            "param_ranges": {p.name: (p.lower, p.upper) for p in model.parameters},
+            "positive_params": (),
+            "nonnegative_params": (),
+        },
+    )
+
