@@ -15,7 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from .models import MODELS, get_model, rest_state
+from .models import BUILT_IN, MODELS, get_model, load_model_file, rest_state
 from .models.base import ModelSpec
 
 UNIT_SYSTEMS = {
@@ -79,6 +79,8 @@ class ModelInfo:
     weight_key, current_key : str
         The key of a synaptic weight (``[[pathway]]``, ``[[drive]]``) and of a
         current amplitude (``[[drive]]`` kinds ``bias`` and ``step``).
+    equations : tuple of str
+        The model's equations, one per line (a model file's as written in it).
     """
 
     name: str
@@ -89,6 +91,7 @@ class ModelInfo:
     parameters: pd.DataFrame
     weight_key: str
     current_key: str
+    equations: tuple = ()
 
 
 def _summary_line(spec: ModelSpec) -> str:
@@ -99,7 +102,7 @@ def _summary_line(spec: ModelSpec) -> str:
 def model_table() -> pd.DataFrame:
     """Every built-in model: columns ``name``, ``description``, ``unit_system``, ``units``."""
     rows = [dict(name=s.name, description=_summary_line(s), unit_system=s.unit_system,
-                 units=UNIT_SYSTEMS[s.unit_system]) for s in MODELS.values()]
+                 units=UNIT_SYSTEMS[s.unit_system]) for s in MODELS.values() if s.name in BUILT_IN]
     return pd.DataFrame(rows).astype({"name": "string", "description": "string",
                                       "unit_system": "string", "units": "string"})
 
@@ -112,8 +115,13 @@ def describe_model(name: str) -> ModelInfo:
     InputError
         If no built-in model has that name (the message lists them).
     """
-    spec = get_model(name)
-    rest = rest_state(spec, spec.default_params())  # the default bias current is 0 in every model
+    spec = load_model_file(name) if str(name).endswith(".toml") else get_model(name)
+    if "initial" in spec.extra:  # a model file: where its cells start unless the scenario says
+        p = spec.default_params()
+        spec.extra["derive"](p[None, :])
+        rest = spec.extra["initial"](p[None, :], {})[0]
+    else:
+        rest = rest_state(spec, spec.default_params())  # the default bias current is 0 in every model
     states = pd.DataFrame(dict(
         key=pd.array(spec.state_names, dtype="string"),
         unit=pd.array([unit_of(k) for k in spec.state_names], dtype="string"),
@@ -123,13 +131,40 @@ def describe_model(name: str) -> ModelInfo:
         upper=np.asarray(spec.upper, dtype=np.float64),
     ))
     fixed = set(spec.extra.get("fixed_params", ()))
+    shown = [p for p in spec.params if "definition" not in spec.extra or p.key not in fixed]
     params = pd.DataFrame(dict(
-        key=pd.array([p.key for p in spec.params], dtype="string"),
-        unit=pd.array([unit_of(p.key) for p in spec.params], dtype="string"),
-        default=np.array([p.default for p in spec.params], dtype=np.float64),
-        fixed=np.array([p.key in fixed for p in spec.params], dtype=bool),
-        description=pd.array([p.doc for p in spec.params], dtype="string"),
+        key=pd.array([p.key for p in shown], dtype="string"),
+        unit=pd.array([unit_of(p.key) for p in shown], dtype="string"),
+        default=np.array([p.default for p in shown], dtype=np.float64),
+        fixed=np.array([p.key in fixed for p in shown], dtype=bool),
+        description=pd.array([p.doc for p in shown], dtype="string"),
     ))
     return ModelInfo(name=spec.name, description=_summary_line(spec), unit_system=spec.unit_system,
                      source=spec.source, states=states, parameters=params,
-                     weight_key=spec.weight_key, current_key=spec.current_key)
+                     weight_key=spec.weight_key, current_key=spec.current_key, equations=_equations(spec))
+
+
+def _equations(spec: ModelSpec) -> tuple:
+    """A model file's equations as written; a built-in model's from its docstring's equation block."""
+    definition = spec.extra.get("definition")
+    if definition is not None:
+        lines = [f"d{s}/dt = {' '.join(str(definition.derivatives[s]).split())}" for s in spec.state_names]
+        lines.append(f"spike: {spec.state_names[0]} crosses {definition.threshold} upwards")
+        for state, e in definition.reset.items():
+            lines.append(f"at a spike: {state} <- {e}")
+        if definition.refractory is not None:
+            lines.append(f"then {spec.state_names[0]} is held for {definition.refractory} ms")
+        sign = "decrements" if definition.inhibitory_sign < 0 else "increments"
+        lines.append(f"an excitatory arrival increments {definition.excitatory}, "
+                     f"an inhibitory one {sign} {definition.inhibitory}, by the weight")
+        return tuple(lines)
+    doc = spec.doc.splitlines()
+    for i, line in enumerate(doc):
+        if line.rstrip().endswith("::"):
+            block = []
+            for follow in doc[i + 1:]:
+                if follow.strip() and not follow.startswith("    "):
+                    break
+                block.append(follow.strip())
+            return tuple(line for line in block if line)
+    return ()

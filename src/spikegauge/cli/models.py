@@ -9,9 +9,9 @@ from .main import cli
 @cli.command()
 @click.argument("name", required=False)
 def models(name):
-    """List the built-in models, or show the scenario keys of model NAME.
+    """List the built-in models, or show the keys of model NAME (a built-in name or a model file, .toml).
 
-    With NAME: its states ([group.initial] keys) with units, resting values
+    With NAME: its equations, its states ([group.initial] keys) with units, resting values
     and scales, its parameters ([group.parameters] keys) with defaults, units
     and descriptions, its weight and current keys, and its published source.
     """
@@ -21,12 +21,18 @@ def models(name):
         table = model_table()
         click.echo(_table(table[["name", "unit_system", "description"]].rename(columns={"unit_system": "units"})))
         click.echo("units: " + "; ".join(f"{k} = {v}" for k, v in UNIT_SYSTEMS.items()))
-        click.echo("`spikegauge models NAME` shows a model's keys.")
+        click.echo("`spikegauge models NAME` shows a model's keys; `spikegauge models FILE.toml` a model file's. "
+                   "A scenario uses a model file with model = \"FILE.toml\" (relative to the scenario).")
         return
     info = describe_model(name)
     click.echo(f"{info.name}: {info.description}")
     click.echo(f"source: {info.source}")
     click.echo(f"units: {info.unit_system} ({UNIT_SYSTEMS[info.unit_system]})")
+    if info.equations:
+        click.echo("")
+        click.echo("equations:")
+        for line in info.equations:
+            click.echo(f"  {line}")
     click.echo("")
     click.echo("states ([group.initial]; initial = resting state at the default parameters, "
                "scale = typical magnitude):")

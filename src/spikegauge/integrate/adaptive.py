@@ -102,6 +102,22 @@ def pilot_scales(network, t_ms: float = PILOT_MS) -> dict:
     return out
 
 
+def _measure_missing_scales(network):
+    """Scales of model files that leave some out: measured by :func:`pilot_scales`; None if none are missing.
+
+    States whose scale the file gives keep it; only the missing ones take the pilot's values.
+    """
+    codes = [int(c) for c in np.unique(network.cell_model)]
+    missing = [model_by_code(c) for c in codes
+               if "scale_given" in model_by_code(c).extra and not model_by_code(c).extra["scale_given"].all()]
+    if not missing:
+        return None
+    measured = pilot_scales(network)
+    return {spec.name: [float(s) if given else measured[spec.name][k]
+                        for k, (s, given) in enumerate(zip(spec.scale, spec.extra["scale_given"]))]
+            for spec in missing}
+
+
 def _scale_table(scale) -> np.ndarray:
     """Scale table (n_models, max_states) from None (model scales) or {model name: [scales]}."""
     table = state_scales()
@@ -154,6 +170,8 @@ class _AdaptiveKernel:
         self.expo = controller_exponent(STEPPER_INFO[stepper].error_order)
         if auto_scale:
             scale = pilot_scales(network)
+        elif scale is None:
+            scale = _measure_missing_scales(network)
         self.scale_table = _scale_table(scale)
         codes = np.unique(network.cell_model)
         self.scale_used = {model_by_code(int(c)).name:

@@ -265,6 +265,7 @@ def compile_model(model: ModelDefinition, slot: int) -> ModelSpec:
             "definition": model,
             "scale_given": np.array([by_name[s].scale is not None for s in states]),
             "param_ranges": {p.name: (p.lower, p.upper) for p in model.parameters},
+            "inhibitory_sign": model.inhibitory_sign,
             "positive_params": (),
             "nonnegative_params": (),
         },

@@ -93,9 +93,13 @@ def parse_expression(text, symbols: dict) -> sympy.Expr:
     except (ValueError, MemoryError, RecursionError) as exc:
         raise ExpressionError(f"cannot be read ({type(exc).__name__})") from None
     try:
-        return _build(tree.body, symbols, 0)
+        result = _build(tree.body, symbols, 0)
     except RecursionError:
         raise ExpressionError("nested too deeply") from None
+    if result.has(sympy.zoo, sympy.oo, -sympy.oo, sympy.nan, sympy.I):
+        raise ExpressionError(f"{text.strip()!r} is not a finite real expression (a division by zero, "
+                              "or the root or logarithm of a negative number)")
+    return result
 
 
 def _build(node, symbols: dict, depth: int) -> sympy.Expr:

@@ -16,7 +16,9 @@ and the problem. The layout (all keys but the optional ones required)::
                    once) and refractory (expression of parameters, ms: the spike
                    state is held that long)
     [inputs]       excitatory, inhibitory (states an arrival increments by its
-                   weight), current (the parameter bias and step drives add to)
+                   weight; "-state" for an inhibitory input that decrements it, the
+                   weight staying positive), current (the parameter bias and step drives add to:
+                   a current in the unit system's unit, or dimensionless)
 
 Unit suffixes follow the scenario files: point units ``_mv _ms _pf _nsiemens
 _pa``, area units ``_mv _ms _uf_per_cm2 _msiemens_per_cm2 _ua_per_cm2``; a
@@ -94,6 +96,7 @@ class ModelDefinition:
     excitatory: str
     inhibitory: str
     current: str
+    inhibitory_sign: float = 1.0
     description: str = ""
     source: str = ""
     symbols: dict = field(default_factory=dict)
@@ -163,6 +166,10 @@ def read_model_text(text: str, label: str) -> ModelDefinition:
             raise err(where, f"{n!r} is reserved (a function or constant name)")
         if n in names:
             raise err(where, f"{n!r} is both a parameter and a state")
+        for short, long in (("ns", "nsiemens"), ("ms_per_cm2", "msiemens_per_cm2")):
+            if n.endswith("_" + short) or f"_{short}_" in n:
+                raise err(where, f"a conductance spells siemens: '_{long}', not '_{short}' "
+                                 f"(which reads as a time)")
         for foreign in _FOREIGN_UNITS[units]:
             if n.endswith("_" + foreign) or f"_{foreign}_" in n:
                 raise err(where, f"unit suffix '_{foreign}' does not fit {units} units")
@@ -256,18 +263,24 @@ def read_model_text(text: str, label: str) -> ModelDefinition:
 
     inputs = raw["inputs"]
     _keys(err, "inputs", inputs, ("excitatory", "inhibitory", "current"), ("excitatory", "inhibitory", "current"))
+    inhibitory_sign = 1.0
+    if isinstance(inputs["inhibitory"], str) and inputs["inhibitory"].startswith("-"):
+        inhibitory_sign, inputs = -1.0, dict(inputs, inhibitory=inputs["inhibitory"][1:].strip())
     for key in ("excitatory", "inhibitory"):
+        if not isinstance(inputs[key], str):
+            raise err(f"inputs.{key}", "must be the name of a state")
         if inputs[key] not in state_names:
             raise err(f"inputs.{key}", f"{inputs[key]!r} is not a state; states: {', '.join(state_names)}")
     if unit_suffix(inputs["excitatory"]) != unit_suffix(inputs["inhibitory"]):
         raise err("inputs", f"the excitatory and inhibitory states must share a unit "
                             f"({inputs['excitatory']!r}, {inputs['inhibitory']!r}): one weight key serves both")
     current = inputs["current"]
-    if current not in param_symbols:
+    if not isinstance(current, str) or current not in param_symbols:
         raise err("inputs.current", f"{current!r} is not a parameter; the bias and step drives add to a parameter")
     want = _CURRENT_SUFFIXES[units]
-    if unit_suffix(current) != want:
-        raise err("inputs.current", f"{current!r} must end in '_{want}' ({units} units)")
+    if unit_suffix(current) not in (want, "") or current.endswith("_mv"):
+        raise err("inputs.current", f"{current!r} must end in '_{want}' ({units} units), "
+                                    "or carry no unit suffix (a dimensionless drive)")
 
     return ModelDefinition(
         name=name, units=units, label=label, text=text,
@@ -275,6 +288,7 @@ def read_model_text(text: str, label: str) -> ModelDefinition:
         parameters=tuple(params), states=tuple(states), derivatives=derivatives,
         spike_state=spike_state, threshold=threshold, reset=reset, refractory=refractory,
         excitatory=inputs["excitatory"], inhibitory=inputs["inhibitory"], current=current,
+        inhibitory_sign=inhibitory_sign,
         description=model.get("description", ""), source=model.get("source", ""), symbols=symbols,
     )
 

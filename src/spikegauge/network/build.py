@@ -24,7 +24,7 @@ import numpy as np
 
 from ..errors import ComputationError, InputError
 
-from ..models import MODELS, max_params, max_states, rest_state
+from ..models import max_params, max_states, rest_state
 from ..models.base import P_IEXT, RECEPTOR_CURRENT, ModelSpec
 from ..models.kernels import split
 from ..scenario import RECEPTORS, Group, Pathway, Scenario
@@ -74,7 +74,7 @@ def build_network(scenario: Scenario) -> Network:
     n_states = np.empty(n_cells, dtype=np.int64)
     for gi, group in enumerate(scenario.groups):
         rows = slice(first[gi], first[gi + 1])
-        spec = MODELS[group.model]
+        spec = group.spec
         cell_model[rows] = spec.code
         n_states[rows] = spec.n_states
         params[rows, :spec.n_params] = _group_params(seed, gi, group)
@@ -222,6 +222,7 @@ def _synapses(scenario: Scenario, first: np.ndarray) -> dict:
             weight = pw.edges.weight.copy()
         else:
             weight = pw.weight.sample(stream(seed, STREAM_SYNAPSE, pi, 1), n)
+        weight = weight * _receptor_sign(scenario.groups[pw.target_index], pw.receptor)
         srcs.append(src + first[pw.source_index])
         tgts.append(tgt + first[pw.target_index])
         delays.append(delay)
@@ -338,6 +339,11 @@ def draw_random_pairs(rng: np.random.Generator, n_src: int, n_tgt: int, p: float
 # Drives
 
 
+def _receptor_sign(group: Group, receptor: str) -> float:
+    """-1 for inhibitory arrivals into a model file whose inhibitory input decrements its state, else 1."""
+    return float(group.spec.extra.get("inhibitory_sign", 1.0)) if receptor == "inhibitory" else 1.0
+
+
 def _drives(scenario: Scenario, first: np.ndarray) -> tuple[tuple, EventList]:
     """Poisson drives and the merged explicit events (current steps, spike files)."""
     seed = scenario.seed
@@ -349,8 +355,8 @@ def _drives(scenario: Scenario, first: np.ndarray) -> tuple[tuple, EventList]:
         if d.kind == "poisson":
             poisson.append(PoissonDrive(
                 drive_id=di, cells=ids, rate_hz=d.rate_hz.sample(stream(seed, STREAM_DRIVE, di), size),
-                weight=float(d.weight), receptor=RECEPTORS[d.receptor],
-                start_ms=float(d.start_ms), stop_ms=float(min(d.stop_ms, scenario.duration_ms))))
+                weight=float(d.weight) * _receptor_sign(scenario.groups[d.target_index], d.receptor),
+                receptor=RECEPTORS[d.receptor], start_ms=float(d.start_ms), stop_ms=float(min(d.stop_ms, scenario.duration_ms))))
         elif d.kind == "step":
             amp = d.current.sample(stream(seed, STREAM_DRIVE, di), size)
             for t, w in ((d.start_ms, amp), (d.stop_ms, -amp)):
@@ -363,7 +369,7 @@ def _drives(scenario: Scenario, first: np.ndarray) -> tuple[tuple, EventList]:
             n = d.spikes.time_ms.size
             times.append(d.spikes.time_ms)
             cells.append(d.spikes.cell + lo)
-            wts.append(np.full(n, float(d.weight)))
+            wts.append(np.full(n, float(d.weight) * _receptor_sign(scenario.groups[d.target_index], d.receptor)))
             recs.append(np.full(n, RECEPTORS[d.receptor], dtype=np.int64))
             srcs.append(np.full(n, -(1 + di), dtype=np.int64))
     if times:

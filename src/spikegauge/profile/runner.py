@@ -66,7 +66,6 @@ def prepare(scenario_path, *, sweep_file=None, quick=False, seeds=1, target_jitt
             target_mismatch_frac=0.01) -> ProfileSpec:
     """Read the scenario and choose the sweep (``--sweep`` file, ``--quick``,
     the scenario's ``[sweep]`` table, else the default)."""
-    import hashlib
 
     path = Path(scenario_path)
     try:
@@ -90,7 +89,7 @@ def prepare(scenario_path, *, sweep_file=None, quick=False, seeds=1, target_jitt
     else:
         sweep, source = default_sweep(scen, d_min), "default"
     return ProfileSpec(scenario=scen, scenario_text=text,
-                       scenario_digest=hashlib.sha256(text.encode()).hexdigest(), sweep=sweep,
+                       scenario_digest=scen.digest, sweep=sweep,  # the model files it uses included
                        sweep_source=source, seeds=[scen.seed + k for k in range(int(seeds))],
                        target_jitter_ms=float(target_jitter_ms),
                        target_mismatch_frac=float(target_mismatch_frac))
