@@ -425,4 +425,4 @@ rtol = 1e-4
     assert ref["uncertainty"]["adequate"]
     table = pd.read_csv(tmp_path / "p" / "results.csv")
     swept = table[table["origin"] == "sweep"]
-    assert (swept["status"] == "ok").all() and swept["n_spikes"].min() > 0
+    assert (swept["status"] == "ok").all() and swept["spikes"].min() > 0
