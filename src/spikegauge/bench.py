@@ -331,6 +331,26 @@ def _compile_everything() -> float:
     return time.perf_counter() - t0
 
 
+def model_file_compile_s() -> tuple[float | None, float | None]:
+    """(compile, start-up from the cache) seconds of a model file, each in a fresh interpreter.
+
+    The bundled Traub-Miles HH file: read, differentiated, generated and
+    compiled with an empty numba cache (an upper bound: its numeric helpers
+    compile too), then loaded again by a second interpreter sharing that cache.
+    """
+    code = ("import time; t0 = time.perf_counter(); from spikegauge.models import load_model_file; "
+            f"load_model_file({str(scenario_dir() / 'models' / 'traub-hh.toml')!r}); "
+            "print(time.perf_counter() - t0)\n")
+    out = []
+    with tempfile.TemporaryDirectory() as cache:
+        env = dict(os.environ, NUMBA_CACHE_DIR=cache)
+        for _ in range(2):
+            res = subprocess.run([sys.executable, "-c", "import spikegauge.models\n" + code], env=env,
+                                 capture_output=True, text=True, timeout=600)
+            out.append(float(res.stdout.strip().splitlines()[-1]) if res.returncode == 0 else None)
+    return out[0], out[1]
+
+
 LIF_SETTINGS = dict(stepper="euler", crossing="step", delivery="grid", dt_ms=0.1)
 HH_SETTINGS = dict(stepper="rk4", crossing="linear", delivery="grid", dt_ms=0.01)
 
@@ -549,6 +569,12 @@ def run_bench(quick: bool = False, reps: int | None = None, log=None) -> dict:
         out["compile_s"] = lif["warmup_s"] + hh["warmup_s"]
         details["compile_kind"] = "warm-up runs in this process (numba cache as found)"
 
+    say("model file ...")
+    out["model_file_compile_s"], out["model_file_load_s"] = model_file_compile_s()
+    for key in ("model_file_compile_s", "model_file_load_s"):
+        if out[key] is None:
+            details["reasons"][key] = "the model-file child process failed"
+
     say("scaling ...")
     details["scaling"] = scaling_bench(quick)
 
@@ -591,6 +617,9 @@ def format_report(res: dict) -> str:
                  f"elephant (extrapolated) {f(res['elephant_van_rossum_1e6_s'])} s")
     lines.append(f"compile {f(res['compile_s'])} s ({d['compile_kind']}); RSS baseline "
                  f"{f(res['baseline_rss_mb'])} MB, growth during bench-lif {f(res['rss_growth_mb'])} MB")
+    lines.append(f"model file (traub-hh): compile {f(res['model_file_compile_s'])} s (goal <= 20), "
+                 f"start-up from the cache {f(res['model_file_load_s'])} s (goal <= 2); fresh interpreters, "
+                 "time from import of spikegauge.models to a loaded model")
     sc = d["scaling"]
     lines.append("bench-lif scaling exponents (target 1.0 +- 0.1): "
                  + ", ".join(f"{name} {_exponent_text(sc[name + '_fit'])}" for name in ("cells", "duration")))

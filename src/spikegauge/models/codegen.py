@@ -170,13 +170,19 @@ def _write_once(path: Path, text: str) -> None:
     os.replace(tmp, path)
 
 
-def _load_module(model: ModelDefinition, source: str):
-    key = hashlib.sha256((GENERATOR_VERSION + numba.__version__ + source).encode()).hexdigest()[:20]
+def _load_module(model: ModelDefinition):
+    """The module of the model's kernels: generated (sympy) only when the cache folder lacks it.
+
+    Named after the model text, this generator's version and numba's; the
+    cache folder itself is named after spikegauge's kernel sources.
+    """
+    key = hashlib.sha256((GENERATOR_VERSION + numba.__version__ + model.text).encode()).hexdigest()[:20]
     name = f"spikegauge_model_{key}"
     if name in sys.modules:
         return sys.modules[name]
     path = _generated_dir() / f"{name}.py"
-    _write_once(path, source)
+    if not path.exists():
+        _write_once(path, generate_source(model))
     spec = importlib.util.spec_from_file_location(name, path)
     module = importlib.util.module_from_spec(spec)
     sys.modules[name] = module
@@ -201,8 +207,7 @@ def compile_model(model: ModelDefinition, slot: int) -> ModelSpec:
 
     Returns the model's :class:`ModelSpec` with code ``FIRST_CODE + slot``.
     """
-    source = generate_source(model)
-    module = _load_module(model, source)
+    module = _load_module(model)
     install(slot, (module.rhs.address, module.jac.address, module.split.address, module.reset.address))
 
     states = _ordered_states(model)
