@@ -34,8 +34,9 @@ def models(name):
         for line in info.equations:
             click.echo(f"  {line}")
     click.echo("")
-    click.echo("states ([group.initial]; initial = resting state at the default parameters, "
-               "scale = typical magnitude):")
+    click.echo("states ([group.initial]; initial = where a cell starts when the scenario does not say: "
+               "a built-in model's resting state at the default parameters, a model file's own initial "
+               "values; scale = typical magnitude):")
     click.echo(_table(info.states[["key", "unit", "initial", "scale"]], indent="  "))
     click.echo("")
     click.echo("parameters ([group.parameters]; fixed ones may not be set):")
