@@ -2,7 +2,7 @@
 
 :func:`compile_model` differentiates the right-hand side with sympy (the
 Jacobian for implicit steppers, its diagonal for the exponential-Euler split
-f_i = a_i + b_i y_i with b_i = d f_i / d y_i), writes the four kernels of
+f_i = a_i + b_i y_i with b_i = d f_i / d y_i), writes the five kernels of
 :mod:`spikegauge.models.generated` as Python source into the kernel cache
 folder (file name from a hash of the model text and of this generator), and
 compiles them as numba ``cfunc``\\ s cached on disk, so a second run of the
@@ -37,7 +37,7 @@ from .expressions import safe_ratio, safe_ratio_slope
 from .generated import FIRST_CODE, install
 from .model_file import ModelDefinition
 
-GENERATOR_VERSION = "1"
+GENERATOR_VERSION = "2"
 """Part of the generated file's name: bump when the generated code changes form."""
 
 DERIVED_KEYS = ("spike.threshold", "spike.reset", "spike.refractory")
@@ -61,6 +61,13 @@ class _Printer(PythonCodePrinter):
 
     def _print_sign(self, e):
         return f"sign({self._print(e.args[0])})"
+
+
+class _VectorPrinter(_Printer):
+    """As :class:`_Printer`, with the exponential LLVM vectorises (:mod:`spikegauge.models.fastexp`)."""
+
+    def _print_exp(self, e):
+        return f"vector_exp({self._print(e.args[0])})"
 
 
 def _local(name: str) -> str:
@@ -98,6 +105,7 @@ def generate_source(model: ModelDefinition) -> str:
     a = [f[i] - diag[i] * y[i] for i in range(n)]
     reset = {states.index(s): e.xreplace(rename) for s, e in model.reset.items()}
     printer = _Printer({"fully_qualified_modules": True, "standard": "python3"})
+    vector_printer = _VectorPrinter({"fully_qualified_modules": True, "standard": "python3"})
 
     def loads(exprs, n_state_loads=True):
         used = set().union(*[e.free_symbols for e in exprs]) if exprs else set()
@@ -121,8 +129,9 @@ def generate_source(model: ModelDefinition) -> str:
         f'"""Kernels of model file {model.name!r} (generated from text sha256 {model.digest[:16]})."""',
         "import math",
         "from numba import cfunc",
-        "from spikegauge.models.generated import (SIG_JAC, SIG_RESET, SIG_RHS, SIG_SPLIT, safe_ratio,",
-        "                                         safe_ratio_slope, sign, step)",
+        "from spikegauge.models.fastexp import exp as vector_exp",
+        "from spikegauge.models.generated import (SIG_JAC, SIG_RESET, SIG_RHS, SIG_RHS_COLS, SIG_SPLIT,",
+        "                                         safe_ratio, safe_ratio_slope, sign, step)",
         "",
         "",
         "@cfunc(SIG_RHS, cache=True, error_model='numpy')",
@@ -145,6 +154,19 @@ def generate_source(model: ModelDefinition) -> str:
     out.append("    a[0] = 0.0 if clamped else a0")
     out.append("    b[0] = 0.0 if clamped else b0")
     out += [f"    a[{i} * as_] = a{i}\n    b[{i} * bs] = b{i}" for i in range(1, n)]
+    out += ["", "", "@cfunc(SIG_RHS_COLS, cache=True, error_model='numpy')",
+            "def rhs_cols(Y, ys0, ys1, P, ps0, ps1, lo, hi, clamped, cs, F, fs0, fs1):",
+            "    for j in range(hi - lo):",
+            "        i = lo + j"]
+    temps, reduced = sympy.cse(f, symbols=sympy.numbered_symbols("t_"))
+    used = set().union(*[e.free_symbols for e in [x for _, x in temps] + list(reduced)])
+    out += [f"        {_local(s)} = Y[{k} * ys0 + j]" for k, s in enumerate(states) if rename[sym[s]] in used]
+    out += [f"        {_local(name)} = P[{slot} * ps0 + i]" for name, slot in slots.items()
+            if rename[sym[name]] in used]
+    out += [f"        {t} = {vector_printer.doprint(e)}" for t, e in temps]
+    out += [f"        f{k} = {vector_printer.doprint(e)}" for k, e in enumerate(reduced)]
+    out.append("        F[j] = 0.0 if clamped[j] else f0")
+    out += [f"        F[{k} * fs0 + j] = f{k}" for k in range(1, n)]
     out += ["", "", "@cfunc(SIG_RESET, cache=True, error_model='numpy')", "def reset(y, ys, p, ps):"]
     if reset:
         keys = sorted(reset)
@@ -208,7 +230,8 @@ def compile_model(model: ModelDefinition, slot: int) -> ModelSpec:
     Returns the model's :class:`ModelSpec` with code ``FIRST_CODE + slot``.
     """
     module = _load_module(model)
-    install(slot, (module.rhs.address, module.jac.address, module.split.address, module.reset.address))
+    install(slot, (module.rhs.address, module.jac.address, module.split.address, module.reset.address,
+                   module.rhs_cols.address))
 
     states = _ordered_states(model)
     by_name = {s.name: s for s in model.states}

@@ -1,14 +1,15 @@
 """Calling the kernels of model files from every integrator, without recompiling them.
 
-A model file is compiled into four C-callable functions (numba ``cfunc``,
+A model file is compiled into five C-callable functions (numba ``cfunc``,
 cached on disk by :mod:`spikegauge.models.codegen`): right-hand side,
-Jacobian, quasi-linear split and reset of one cell. Their addresses sit in
-one table of this process, :data:`TABLE` (row = model slot, column = kernel),
+Jacobian, quasi-linear split and reset of one cell, and the right-hand side
+of a block of cells in structure-of-arrays form (a loop LLVM vectorises).
+Their addresses sit in one table of this process, :data:`TABLE` (row = model slot, column = kernel),
 reachable from compiled code through one exported symbol. The integrators
 reach them through :mod:`spikegauge.models.kernels`, whose dispatch sends
 every code from ``FIRST_CODE`` on to the wrappers below; the wrappers load the
 address from the table at run time. So the integrators, compiled and cached
-once, serve every model file, and a new model file compiles only its own four
+once, serve every model file, and a new model file compiles only its own five
 small functions.
 
 Every array is passed as (data pointer, stride in elements), so rows, columns
@@ -18,8 +19,11 @@ and views of any layout can be handed over as they are. Signatures::
     jac(y, ys, p, ps, clamped, J, js0, js1)
     split(y, ys, p, ps, clamped, a, as, b, bs)
     reset(y, ys, p, ps)
+    rhs_cols(Y, ys0, ys1, P, ps0, ps1, lo, hi, clamped, cs, F, fs0, fs1)
 
-(pointers to float64, strides and ``clamped`` int64). The numeric helpers the
+(pointers to float64 but ``clamped`` of rhs_cols, a pointer to uint8; strides,
+``lo``, ``hi`` and the other ``clamped`` int64). rhs_cols reads consecutive
+cells from consecutive addresses (its wrapper checks). The numeric helpers the
 generated code calls (:func:`safe_ratio` ...) live here too.
 """
 from __future__ import annotations
@@ -42,8 +46,9 @@ FIRST_CODE = 5
 MAX_MODEL_FILES = 256
 """Model files one process can load."""
 
-K_RHS, K_JAC, K_SPLIT, K_RESET = range(4)
-TABLE = (ctypes.c_int64 * (4 * MAX_MODEL_FILES))()
+K_RHS, K_JAC, K_SPLIT, K_RESET, K_RHS_COLS = range(5)
+N_KERNELS = 5
+TABLE = (ctypes.c_int64 * (N_KERNELS * MAX_MODEL_FILES))()
 """Kernel addresses, row-major (model slot, kernel); 0 where no model is loaded."""
 
 TABLE_SYMBOL = "spikegauge_model_file_kernels"
@@ -57,22 +62,24 @@ SIG_RHS = types.void(F64P, types.int64, F64P, types.int64, types.int64, F64P, ty
 SIG_JAC = types.void(F64P, types.int64, F64P, types.int64, types.int64, F64P, types.int64, types.int64)
 SIG_SPLIT = types.void(F64P, types.int64, F64P, types.int64, types.int64, F64P, types.int64, F64P, types.int64)
 SIG_RESET = types.void(F64P, types.int64, F64P, types.int64)
+SIG_RHS_COLS = types.void(F64P, types.int64, types.int64, F64P, types.int64, types.int64, types.int64,
+                          types.int64, types.CPointer(types.uint8), types.int64, F64P, types.int64, types.int64)
 
 
 def install(slot: int, addresses) -> None:
-    """Put the four kernel addresses (rhs, jac, split, reset) of model slot ``slot`` in the table."""
+    """Put the kernel addresses (rhs, jac, split, reset, rhs_cols) of model slot ``slot`` in the table."""
     if not 0 <= slot < MAX_MODEL_FILES:
         raise ValueError(f"model slot {slot} outside 0..{MAX_MODEL_FILES - 1}")
     for k, address in enumerate(addresses):
-        TABLE[4 * slot + k] = int(address)
+        TABLE[N_KERNELS * slot + k] = int(address)
 
 
 def _array_args(context, builder, aty, value):
     """(data pointer, strides in elements...) of a numba array value."""
     arr = context.make_array(aty)(context, builder, value)
     strides = cgutils.unpack_tuple(builder, arr.strides, aty.ndim)
-    eight = ir.Constant(ir.IntType(64), 8)
-    return [arr.data] + [builder.sdiv(s, eight) for s in strides]
+    item = ir.Constant(ir.IntType(64), context.get_abi_sizeof(context.get_data_type(aty.dtype)))
+    return [arr.data] + [builder.sdiv(s, item) for s in strides]
 
 
 def _table_entry(builder, slot, kernel):
@@ -84,7 +91,7 @@ def _table_entry(builder, slot, kernel):
         gv = ir.GlobalVariable(module, i64.as_pointer(), name=TABLE_SYMBOL)
         gv.linkage = "external"
     table = builder.load(gv)
-    index = builder.add(builder.mul(slot, ir.Constant(i64, 4)), ir.Constant(i64, kernel))
+    index = builder.add(builder.mul(slot, ir.Constant(i64, N_KERNELS)), ir.Constant(i64, kernel))
     return builder.load(builder.gep(table, [index]))
 
 
@@ -93,13 +100,13 @@ def _codegen(kernel):
 
     def codegen(context, builder, signature, args):
         i64 = ir.IntType(64)
-        dbl = ir.DoubleType()
         c_args, c_types = [], []
         for aty, value in zip(signature.args[1:], args[1:]):
             if isinstance(aty, types.Array):
                 data, *strides = _array_args(context, builder, aty, value)
-                c_args += [builder.bitcast(data, dbl.as_pointer()), *strides]
-                c_types += [dbl.as_pointer()] + [i64] * len(strides)
+                pointer = context.get_data_type(aty.dtype).as_pointer()
+                c_args += [builder.bitcast(data, pointer), *strides]
+                c_types += [pointer] + [i64] * len(strides)
             elif isinstance(aty, types.Boolean):
                 c_args.append(builder.zext(value, i64))
                 c_types.append(i64)
@@ -135,6 +142,11 @@ def _call_reset(typingctx, slot, y, p):
     return types.void(slot, y, p), _codegen(K_RESET)
 
 
+@intrinsic
+def _call_rhs_cols(typingctx, slot, Y, P, lo, hi, clamped, F):
+    return types.void(slot, Y, P, lo, hi, clamped, F), _codegen(K_RHS_COLS)
+
+
 @jit
 def rhs(code, y, p, clamped, dydt):
     """Right-hand side of one cell of model file ``code`` into ``dydt``."""
@@ -157,6 +169,23 @@ def split(code, y, p, clamped, a, b):
 def reset(code, y, p):
     """The reset of model file ``code`` applied to ``y``."""
     _call_reset(code - FIRST_CODE, y, p)
+
+
+@jit
+def rhs_cols(code, Y, P, lo, hi, clamped, F, k):
+    """Right-hand side of cells lo..hi-1 of model file ``code`` (structure of arrays).
+
+    As :func:`spikegauge.models.kernels.rhs_cols`: column ``i - lo`` of ``Y``
+    and ``F[k]`` for cell ``i``, column ``i`` of ``P``. The generated loop
+    reads consecutive cells from consecutive addresses; returns False (and
+    computes nothing) when a layout does not allow that, so the caller goes
+    cell by cell.
+    """
+    Fk = F[k]
+    if Y.strides[1] != 8 or P.strides[1] != 8 or Fk.strides[1] != 8 or clamped.strides[0] != 1:
+        return False
+    _call_rhs_cols(code - FIRST_CODE, Y, P, lo, hi, clamped, Fk)
+    return True
 
 
 # Numeric helpers of generated code.
@@ -192,4 +221,4 @@ def sign(x):
 
 def table_snapshot() -> np.ndarray:
     """Copy of the kernel table (model slot, kernel), for tests and diagnostics."""
-    return np.ctypeslib.as_array(TABLE).reshape(MAX_MODEL_FILES, 4).copy()
+    return np.ctypeslib.as_array(TABLE).reshape(MAX_MODEL_FILES, N_KERNELS).copy()

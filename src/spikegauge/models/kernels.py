@@ -123,9 +123,9 @@ def rhs_cols(code, Y, P, D, lo, hi, n_states, clamped, F, k):
     the derivatives go to ``F[k, :n_states, :hi - lo]``; ``P`` (n_params,
     n_cells) and ``D`` (N_DERIVED, n_cells) are indexed by ``i``;
     ``clamped[i - lo]`` is the clamp flag. Models with a column form run it as
-    loops that LLVM vectorises (same formulas as :func:`rhs`; hh-squid's
-    exponentials may differ from it in the last bit); the others go cell by
-    cell through :func:`rhs`.
+    loops that LLVM vectorises (same formulas as :func:`rhs`; hh-squid's and
+    the model files' exponentials may differ from it in the last bit); the
+    others go cell by cell through :func:`rhs`.
     """
     if code == 0:
         lif_current.rhs_cols(Y, P, lo, hi, clamped, F, k)
@@ -133,6 +133,8 @@ def rhs_cols(code, Y, P, D, lo, hi, n_states, clamped, F, k):
         lif_conductance.rhs_cols(Y, P, lo, hi, clamped, F, k)
     elif code == 3:
         hh_squid.rhs_cols(Y, P, D, lo, hi, clamped, F, k)
+    elif code >= generated.FIRST_CODE and generated.rhs_cols(code, Y, P, lo, hi, clamped, F, k):
+        pass  # a model file's generated column loop
     else:
         y = np.zeros(Y.shape[0])
         p = np.empty(P.shape[0])
