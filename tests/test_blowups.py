@@ -2,7 +2,7 @@
 
 * explicit fixed step (euler too large a step on Hodgkin–Huxley): "diverged at
   t" with the spikes up to then;
-* backward Euler: a failed Newton iteration;
+* backward Euler and the trapezoidal rule: a failed Newton iteration;
 * adaptive explicit (dp54, bs32) and Rosenbrock (rodas3): the minimum step or
   the maximum step count, naming the cell and the time.
 
@@ -86,13 +86,14 @@ def test_explicit_fixed_step_too_large_diverges_with_spikes_until_then(tmp_path,
     assert len(run.spikes) >= n and len(run.spikes) > 0
 
 
-def test_backward_euler_reports_failed_newton(tmp_path):
-    # At dt 1 ms the Newton iteration of backward Euler on HH does not converge in its
-    # iteration budget: a result naming the implicit stepper, not an exception.
-    settings = dict(strategy="fixed", stepper="backward-euler", dt_ms=1.0, crossing="linear",
-                    delivery="exact")
+@pytest.mark.parametrize("stepper,crossing", [("backward-euler", "linear"), ("trapezoidal", "hermite")])
+def test_implicit_fixed_step_reports_failed_newton(tmp_path, stepper, crossing):
+    # At dt 1 ms the Newton iteration of backward Euler and of the trapezoidal rule on HH
+    # does not converge in its iteration budget: a result naming the implicit stepper, not an
+    # exception.
+    settings = dict(strategy="fixed", stepper=stepper, dt_ms=1.0, crossing=crossing, delivery="exact")
     run = spikegauge.simulate(HH, t_stop_ms=50.0, **settings)
-    _check_diverged(run, "Newton iteration of the implicit stepper failed", "backward-euler", tmp_path)
+    _check_diverged(run, "Newton iteration of the implicit stepper failed", stepper, tmp_path)
 
 
 @pytest.mark.parametrize("strategy", ["global-adaptive", "local-adaptive"])

@@ -133,7 +133,7 @@ def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, d
     strategy : {"fixed", "global-adaptive", "local-adaptive", "exact"}, optional
         Default from the scenario's ``[integration]`` table, else ``"fixed"``.
     stepper, dt_ms, crossing, delivery : optional
-        Fixed step: stepper (euler, expeuler, rk2, rk4, backward-euler), time step (ms),
+        Fixed step: stepper (euler, expeuler, rk2, rk4, backward-euler, trapezoidal), time step (ms),
         crossing (step, linear, hermite), delivery (grid, exact).
     rtol, atol : float, optional
         Adaptive strategies: relative tolerance and absolute tolerance in units of

@@ -55,6 +55,8 @@ FIXED_ORDER_SOURCES = {
     ("euler", "linear"): (1.0, "common practice (first-order stepper)"),
     ("expeuler", "linear"): (1.0, "common practice (first-order stepper)"),
     ("backward-euler", "linear"): (1.0, "common practice (first-order stepper)"),
+    ("trapezoidal", "hermite"): (2.0, "textbook order of the trapezoidal rule; Hansel et al. 1998 "
+                                      "(interpolation of a higher order does not cap it)"),
 }
 """Published or expected spike-time error order of (stepper, crossing) with exact delivery.
 A step crossing or grid delivery quantises times to the grid: first order at best
