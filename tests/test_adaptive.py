@@ -277,6 +277,7 @@ def hh_200():
     ("dp54", [1e-4, 1e-5, 1e-6, 1e-7, 1e-8]),
     ("bs32", [1e-4, 1e-5, 1e-6, 1e-7, 1e-8]),
     ("rodas3", [1e-4, 1e-5, 1e-6, 1e-7, 1e-8]),
+    ("bdf", [1e-4, 1e-5, 1e-6, 1e-7, 1e-8]),
 ])
 def test_tolerance_proportionality_single_cell(hh_200, stepper, rtols):
     # RMS spike-time error against solve_ivp DOP853 (1e-12) falls in proportion to rtol
@@ -288,7 +289,7 @@ def test_tolerance_proportionality_single_cell(hh_200, stepper, rtols):
     assert 0.6 <= slope <= 1.2, (stepper, errs)
 
 
-@pytest.mark.parametrize("stepper", ["dp54", "bs32", "rodas3"])
+@pytest.mark.parametrize("stepper", ["dp54", "bs32", "rodas3", "bdf"])
 def test_tolerance_proportionality_network(three_cell, stepper):
     # the same on the 3-cell network against the restarted solve_ivp reference
     net, ref = three_cell["net"], three_cell["ref"]
@@ -404,8 +405,9 @@ def test_local_takes_fewer_cell_steps_than_global_and_global_grows_with_events()
 
 # ------------------------------------------------------------- determinism
 
-@pytest.mark.parametrize("cls", [LocalAdaptiveKernel, GlobalAdaptiveKernel])
-def test_bit_identical_for_one_and_two_threads(cls):
+@pytest.mark.parametrize("cls,stepper", [(LocalAdaptiveKernel, "dp54"), (GlobalAdaptiveKernel, "dp54"),
+                                          (LocalAdaptiveKernel, "bdf")])
+def test_bit_identical_for_one_and_two_threads(cls, stepper):
     # DESIGN.md: per-cell work in fixed chunks, reductions in cell order
     net = sparse_net(70, 30.0, seed=9)
     before = numba.get_num_threads()
@@ -413,7 +415,7 @@ def test_bit_identical_for_one_and_two_threads(cls):
     try:
         for threads in (1, 2):
             numba.set_num_threads(threads)
-            res = run(cls, net, 30.0, rtol=1e-5)[0]
+            res = run(cls, net, 30.0, stepper=stepper, rtol=1e-5)[0]
             out.append((res.cell.copy(), res.time_ms.copy(), res.counters))
     finally:
         numba.set_num_threads(before)

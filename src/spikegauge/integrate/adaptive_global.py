@@ -27,11 +27,11 @@ from .._numba import jit
 from ..models.base import P_TREF, P_VRESET, P_VTH
 from ..models.kernels import reset, rhs
 from .adaptive_local import record_step, spike_time
-from .adaptive_steppers import (DENSE_DEGREE, F1_ROW, ROW_DENSE, ROW_ERR, ROW_Y1, dense_coefficients,
-                                dense_state, finish_step, trial_step)
+from .adaptive_steppers import (DENSE_DEGREE, F1_ROW, JACOBIANS_PER_TRIAL, ROW_DENSE, ROW_ERR, ROW_Y1,
+                                dense_coefficients, dense_state, finish_step, trial_step)
 from .dense import upward_crossings
-from .engine import (C_ARRIVALS, C_NEWTON, C_REJECTED, C_RHS, C_STEPS, DIV_BOUNDS, DIV_MAX_STEPS,
-                     DIV_MIN_STEP)
+from .engine import (C_ARRIVALS, C_JACOBIAN, C_NEWTON, C_REJECTED, C_RHS, C_STEPS, DIV_BOUNDS,
+                     DIV_MAX_STEPS, DIV_MIN_STEP)
 from .fixed import _apply, _in_bounds
 from .step_control import (error_norm, initial_step, next_step_accepted, next_step_rejected,
                            step_to_end)
@@ -74,6 +74,7 @@ def _trial_phase(t, h, method, code, Y, P, refr, nst, KK, MM, PIV, JJ, norms, co
         clamped = t < refr[i]
         nf, nls = trial_step(method, code[i], Y[i], P[i], clamped, h, nst[i], KK[i], MM[i], PIV[i],
                              JJ[i])
+        counters[i, C_JACOBIAN] += JACOBIANS_PER_TRIAL[method]
         if nf < 0:
             norms[i] = np.inf
         else:
@@ -142,7 +143,7 @@ def _update_phase(t, h, t_new, t_next, th_cut, method, code, Y, P, refr, nst, KK
 def global_window(method, code, Y, P, refr, div_time, div_code, g_state, lower, upper, scale, pzero,
                   nst, t0, t1, rtol, atol, arr_ptr, arr_time, arr_recep, arr_weight, spk_count,
                   spk_time, counters, rstate, KK, MM, JJ, PIV, WORK, tr_on, tr_time, tr_h,
-                  tr_acc, tr_count, h_min, h_max, max_steps, order, expo):
+                  tr_acc, tr_ord, tr_count, h_min, h_max, max_steps, order, expo):
     """Advance the whole network from t0 to t1 with one shared step size.
 
     ``g_state`` (3,) float64 carries across windows: [0] proposed step (<= 0:
@@ -212,7 +213,7 @@ def global_window(method, code, Y, P, refr, div_time, div_code, g_state, lower, 
             for i in range(n_cells):
                 counters[i, C_REJECTED] += 1
             if tr_on:
-                record_step(0, t, h, False, tr_time, tr_h, tr_acc, tr_count)
+                record_step(0, t, h, False, order, tr_time, tr_h, tr_acc, tr_ord, tr_count)
             h_prop = next_step_rejected(h, err, expo)
             after_reject = True
             if not h_prop >= h_min:  # also stops a NaN step size
@@ -238,7 +239,7 @@ def global_window(method, code, Y, P, refr, div_time, div_code, g_state, lower, 
         _update_phase(t, h, t_new, t_next, th_cut, method, code, Y, P, refr, nst, KK, has_reset,
                       th_first, ncross, cross, spk_count, spk_time, have_f, f_cl, bad, lower, upper)
         if tr_on:
-            record_step(0, t, t_next - t, True, tr_time, tr_h, tr_acc, tr_count)
+            record_step(0, t, t_next - t, True, order, tr_time, tr_h, tr_acc, tr_ord, tr_count)
         t = t_next
         stop = False
         for i in range(n_cells):

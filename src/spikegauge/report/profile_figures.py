@@ -58,7 +58,7 @@ def plot_front(table: pd.DataFrame, doc: dict, error: str = "jitter", cost: str 
     ax.set_xscale("log")
     ax.set_yscale("log")
     _draw_lower_bounds(ax, table[table["seed"] == seed0], cost)
-    ax.set_xlabel({"work": "work (rhs evaluations + Newton iterations)",
+    ax.set_xlabel({"work": "work (rhs evaluations + Newton iterations + Jacobians)",
                    "cpu": "CPU seconds on one thread"}[cost])
     ax.set_ylabel({"jitter": "RMS jitter in the evaluation window (ms)",
                    "mismatch": "(missed + extra) per reference spike",
