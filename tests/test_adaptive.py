@@ -129,7 +129,7 @@ def lif_cell(t_stop, events=()):
     return model_network("lif-current", p, [[-65.0, 0.0, 0.0]], t_stop, events=events, d_min_ms=1.0)
 
 
-@pytest.mark.parametrize("stepper", ["bs32", "dp54", "rodas3"])
+@pytest.mark.parametrize("stepper", ["bs32", "dp54", "rodas3", "bdf"])
 @pytest.mark.parametrize("cls", [LocalAdaptiveKernel, GlobalAdaptiveKernel])
 def test_lif_constant_current_closed_form(cls, stepper):
     # LIF under constant current (textbook closed form, ../shared/CHECKS.md): first spike at
@@ -145,13 +145,14 @@ def test_lif_constant_current_closed_form(cls, stepper):
     assert np.max(np.abs(got - expect)) < 1e-6
 
 
-def test_lif_single_cell_global_equals_local_with_events():
+@pytest.mark.parametrize("stepper", ["dp54", "bdf"])
+def test_lif_single_cell_global_equals_local_with_events(stepper):
     # reset, refractory clamp and arrivals: still one method for one cell (DESIGN.md)
     ev = [(3.3, 0, RECEPTOR_EXC, 200.0), (17.25, 0, RECEPTOR_INH, 300.0),
           (40.0, 0, RECEPTOR_CURRENT, -400.0), (41.5, 0, RECEPTOR_EXC, 500.0)]
     net = lif_cell(80.0, ev)
-    a, _ = run(LocalAdaptiveKernel, net, 80.0, rtol=1e-6)
-    b, _ = run(GlobalAdaptiveKernel, net, 80.0, rtol=1e-6)
+    a, _ = run(LocalAdaptiveKernel, net, 80.0, stepper=stepper, rtol=1e-6)
+    b, _ = run(GlobalAdaptiveKernel, net, 80.0, stepper=stepper, rtol=1e-6)
     assert a.time_ms.size == b.time_ms.size > 3
     assert np.max(np.abs(a.time_ms - b.time_ms)) <= 1e-9
 
@@ -406,7 +407,7 @@ def test_local_takes_fewer_cell_steps_than_global_and_global_grows_with_events()
 # ------------------------------------------------------------- determinism
 
 @pytest.mark.parametrize("cls,stepper", [(LocalAdaptiveKernel, "dp54"), (GlobalAdaptiveKernel, "dp54"),
-                                          (LocalAdaptiveKernel, "bdf")])
+                                          (LocalAdaptiveKernel, "bdf"), (GlobalAdaptiveKernel, "bdf")])
 def test_bit_identical_for_one_and_two_threads(cls, stepper):
     # DESIGN.md: per-cell work in fixed chunks, reductions in cell order
     net = sparse_net(70, 30.0, seed=9)

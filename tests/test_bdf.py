@@ -28,7 +28,7 @@ import pytest
 from scipy.integrate._ivp.bdf import BdfDenseOutput
 from scipy.integrate._ivp.bdf import change_D as scipy_change_D
 
-from spikegauge.integrate.adaptive import LocalAdaptiveKernel
+from spikegauge.integrate.adaptive import GlobalAdaptiveKernel, LocalAdaptiveKernel
 from spikegauge.integrate.bdf import MAX_ORDER, bdf_dense_coefficients, change_D
 from spikegauge.integrate.engine import run_windows
 from spikegauge.models import MODELS, receptor_state_table, state_scales
@@ -147,15 +147,18 @@ def hh_single():
 
     root.terminal = [False]
     root.direction = [1]
-    ours, cvode = {}, {}
+    ours, cvode, glob = {}, {}, {}
     for rtol in RTOLS:
         res, _ = run_bdf(net, T_SINGLE, rtol)
         assert res.status == "ok"
         ours[rtol] = (res.time_ms[res.cell == 0], res.counters["steps"])
+        res, _ = run_bdf(net, T_SINGLE, rtol, kernel=GlobalAdaptiveKernel)
+        assert res.status == "ok"
+        glob[rtol] = (res.time_ms[res.cell == 0], res.counters["steps"])
     for rtol in RTOLS[::2]:
         steps, _, events = cvode_steps(f, jf, 0.0, T_SINGLE, net.y0[0, :HH.n_states], rtol, root)
         cvode[rtol] = (events, steps)
-    return dict(ref=ref, ours=ours, cvode=cvode)
+    return dict(ref=ref, ours=ours, cvode=cvode, glob=glob)
 
 
 def max_error(got, ref):
@@ -189,6 +192,14 @@ def test_single_hh_error_and_steps_against_cvode(hh_single, rtol):
     assert 0.5 <= steps / cv_steps <= 2.0, (steps, cv_steps)
 
 
+def test_single_hh_global_equals_local(hh_single):
+    # one cell: the two strategies are the same method (DESIGN.md), so the same spikes and steps
+    for rtol in RTOLS:
+        a, b = hh_single["ours"][rtol], hh_single["glob"][rtol]
+        assert a[1] == b[1]
+        np.testing.assert_array_equal(a[0], b[0])
+
+
 # ------------------------------------------- one HH cell under an input train
 
 TRAIN_T_MS = 200.0
@@ -196,8 +207,9 @@ TRAIN_PERIOD_MS = 2.0
 TRAIN_WEIGHT = 0.05   # mS/cm2 of excitatory conductance per input
 
 
+@pytest.mark.parametrize("kernel", [LocalAdaptiveKernel, GlobalAdaptiveKernel])
 @pytest.mark.parametrize("rtol", [1e-4, 1e-6])
-def test_input_train_restarts_like_reinitialised_cvode(rtol):
+def test_input_train_restarts_like_reinitialised_cvode(rtol, kernel):
     # CVODE BDF (scikit-sundae) re-initialised at every input: steps per input within 2x;
     # the order trace is 1 on the first step after every input (a restart), and the order
     # rises again in between
@@ -205,7 +217,7 @@ def test_input_train_restarts_like_reinitialised_cvode(rtol):
     p = model_params("hh-squid", 1)
     net = model_network("hh-squid", p, hh_rest()[None, :], TRAIN_T_MS,
                         events=[(t, 0, RECEPTOR_EXC, TRAIN_WEIGHT) for t in times])
-    res, k = run_bdf(net, TRAIN_T_MS, rtol, record_steps=[0])
+    res, k = run_bdf(net, TRAIN_T_MS, rtol, kernel=kernel, record_steps=[0])
     assert res.status == "ok"
     f, jf = hh_functions(net.params[0])
     exc = receptor_state_table()[HH.code, RECEPTOR_EXC]

@@ -310,16 +310,14 @@ class GlobalAdaptiveKernel(_AdaptiveKernel):
     """Global adaptive strategy: one step size for the whole network.
 
     Parameters and attributes as :class:`LocalAdaptiveKernel`; ``max_steps``
-    counts the network's steps. ``record_steps`` lists cells as well: each
+    counts the network's steps. With ``bdf`` the network is one BDF system
+    (one step and one order; every event restarts every cell). ``record_steps`` lists cells as well: each
     gets the network's steps in :meth:`step_trace` (they are the same for all).
     """
 
     strategy = "global-adaptive"
 
     def __init__(self, network, stepper, rtol, atol, scale=None, record_steps=None, **kw):
-        if stepper == "bdf":
-            raise InputError("stepper: bdf is not available for global-adaptive yet; "
-                             "use it with local-adaptive")
         super().__init__(network, stepper, rtol, atol, scale=scale, record_steps=record_steps, **kw)
         n = network.n_cells
         width = network.y0.shape[1]
@@ -328,6 +326,7 @@ class GlobalAdaptiveKernel(_AdaptiveKernel):
         self._JJ = np.empty((n, width, width))
         self._PIV = np.empty((n, width), dtype=np.int64)
         self._WORK = np.empty((n, 2, width))
+        self._LUC = np.empty(n)
 
     def _trace_rows(self):
         return 1 if self.record_cells else 0
@@ -336,6 +335,12 @@ class GlobalAdaptiveKernel(_AdaptiveKernel):
         if "global" not in state.extra or self._extra_made_at == t0:
             # [proposed step (0: estimate), PI memory, network steps taken]
             state.extra["global"] = np.array([0.0, 1e-4, 0.0])
+            n = self.network.n_cells
+            width = self.network.y0.shape[1]
+            bdf = self.stepper_name == "bdf"
+            state.extra["bdf_D"] = np.zeros((n, D_ROWS, width) if bdf else (n, 0, 0))
+            state.extra["bdf_J"] = np.zeros((n, width, width) if bdf else (n, 0, 0))
+            state.extra["bdf"] = np.zeros((n, N_BDF))   # order 0: no history yet
             self._extra_made_at = t0
 
     def _run(self, state, t0, t1, arrivals, spikes, counters, tr):
@@ -344,7 +349,9 @@ class GlobalAdaptiveKernel(_AdaptiveKernel):
                       state.upper, self._scale, self._pzero, state.n_states, float(t0), float(t1),
                       self.rtol, self.atol, arrivals.ptr, arrivals.time_ms, arrivals.receptor,
                       arrivals.weight, spikes.count, spikes.time_ms, counters, self.rstate,
-                      self._KK, self._MM, self._JJ, self._PIV, self._WORK,
+                      self._KK, self._MM,
+                      state.extra["bdf_J"] if self.stepper_name == "bdf" else self._JJ,
+                      self._PIV, self._WORK, state.extra["bdf_D"], state.extra["bdf"], self._LUC,
                       bool(self.record_cells), tr[0], tr[1], tr[2], tr[3], tr[4],
                       *self._kernel_args())
 

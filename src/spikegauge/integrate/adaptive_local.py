@@ -16,7 +16,9 @@ without (Hodgkin-Huxley) just records the spike.
 The multistep ``bdf`` (:mod:`spikegauge.integrate.bdf`) keeps its history
 across steps and windows (per-cell arrays) and restarts it at order 1 after
 every event that changes the cell's state or right-hand side: an arrival, a
-reset, the start or end of a refractory clamp. A window end only cuts the step.
+reset, the start or end of a refractory clamp (``BF[B_ORDER] = 0`` marks it,
+so an event at a window end restarts the next window). A window end only cuts
+the step.
 """
 import numba
 import numpy as np
@@ -27,9 +29,9 @@ from ..models.kernels import jac, reset, rhs
 from .adaptive_steppers import (DENSE_DEGREE, F1_ROW, JACOBIANS_PER_TRIAL, N_ROWS, ROW_DENSE,
                                 ROW_ERR, ROW_Y1, dense_coefficients, dense_state, finish_step,
                                 trial_step)
-from .bdf import (B_CLAMPED, B_ORDER, bdf_dense_coefficients, bdf_dense_state, bdf_rejected_step,
-                  bdf_select, bdf_set_step, bdf_start, bdf_trial, bdf_update_differences,
-                  newton_tolerance)
+from .bdf import (B_JAC, B_ORDER, bdf_dense_coefficients, bdf_dense_state, bdf_needs_start,
+                  bdf_rejected_step, bdf_select, bdf_set_step, bdf_start, bdf_trial,
+                  bdf_update_differences, newton_tolerance)
 from .dense import upward_crossings
 from .engine import (C_ARRIVALS, C_JACOBIAN, C_NEWTON, C_REJECTED, C_RHS, C_STEPS, DIV_BOUNDS,
                      DIV_MAX_STEPS, DIV_MIN_STEP, DIV_NEWTON)
@@ -93,7 +95,6 @@ def _local_cell(method, code, y, p, refr0, h_start, err_prev0, n, t0, t1, rtol, 
     f1row = F1_ROW[method]
     njac = JACOBIANS_PER_TRIAL[method]
     bdf = method == BDF
-    restart = False             # bdf: an event since the last step
     lu_c = np.nan               # bdf: h / alpha_k that M is factored for
     ntol = newton_tolerance(rtol)
     n_iter = 0
@@ -105,7 +106,8 @@ def _local_cell(method, code, y, p, refr0, h_start, err_prev0, n, t0, t1, rtol, 
             cnt[C_ARRIVALS] += 1
             a += 1
             have_f = False
-            restart = True
+            if bdf:
+                BF[B_ORDER] = 0.0   # restart the history
         if t >= t1:
             break
         clamped = t < refr
@@ -115,17 +117,17 @@ def _local_cell(method, code, y, p, refr0, h_start, err_prev0, n, t0, t1, rtol, 
         if clamped and refr < t_end:
             t_end = refr
         if bdf:
-            if BF[B_ORDER] == 0.0 or restart or BF[B_CLAMPED] != (1.0 if clamped else 0.0):
+            if bdf_needs_start(BF, clamped):
                 rhs(code, y, p, clamped, K[0])
                 cnt[C_RHS] += 1
-                if BF[B_ORDER] == 0.0:
+                if BF[B_JAC] == 0.0:
                     jac(code, y, p, clamped, J)
                     cnt[C_JACOBIAN] += 1
+                    BF[B_JAC] = 1.0
                 h_prop, nfi = initial_step(code, y, p, clamped, K[0], n, 1, rtol, atol, scale,
                                            pzero, h_max, work)
                 cnt[C_RHS] += nfi
                 bdf_start(y, K[0], h_prop, n, D, BF, clamped)
-                restart = False
         else:
             if have_f and f_clamped != clamped:
                 have_f = False
@@ -213,7 +215,8 @@ def _local_cell(method, code, y, p, refr0, h_start, err_prev0, n, t0, t1, rtol, 
             if tref > 0.0:
                 refr = ts + tref
             have_f = False
-            restart = True
+            if bdf:
+                BF[B_ORDER] = 0.0   # restart the history
             record_step(slot, t, ts - t, True, step_order, tr_time, tr_h, tr_acc, tr_ord, tr_count)
             t = ts
         else:

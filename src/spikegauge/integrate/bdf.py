@@ -35,9 +35,11 @@ selection of the Byrne & Hindmarsh (1975, ACM TOMS 1:71-96) and Brown, Byrne
   Neural Comput 17:903-921).
 
 Per-cell record ``BF`` (float64, ``N_BDF``): ``[B_ORDER]`` current order (0:
-no history yet, the Jacobian not evaluated either), ``[B_EQUAL]`` steps since
-the last change of step or order, ``[B_H]`` the spacing of ``D`` (ms),
-``[B_CLAMPED]`` 1.0 when the history was built under the refractory clamp.
+no valid history, restart before the next step: set at the start and by
+every event), ``[B_EQUAL]`` steps since the last change of step or order,
+``[B_H]`` the spacing of ``D`` (ms), ``[B_CLAMPED]`` 1.0 when the history was
+built under the refractory clamp, ``[B_JAC]`` 1.0 once the cell's Jacobian
+has been evaluated.
 
 Scratch rows of ``K`` (shape (N_ROWS, width), :mod:`adaptive_steppers`):
 row 0 f(y) at a restart, ``ROW_PRED`` the predicted state, ``ROW_PSI`` the
@@ -72,7 +74,8 @@ B_ORDER = 0
 B_EQUAL = 1
 B_H = 2
 B_CLAMPED = 3
-N_BDF = 4
+B_JAC = 4
+N_BDF = 5
 
 BDF_GAMMA = np.concatenate(([0.0], np.cumsum(1.0 / np.arange(1, MAX_ORDER + 1))))
 """gamma_k = sum_{j<=k} 1/j (Shampine & Reichelt 1997, section 2.3)."""
@@ -132,6 +135,12 @@ def change_D(D, order, factor, n):
             tmp[j] = acc
         for j in range(k1):
             D[j, q] = tmp[j]
+
+
+@jit
+def bdf_needs_start(BF, clamped):
+    """Whether the history must be (re)started: none yet, an event since, or the clamp changed."""
+    return BF[B_ORDER] == 0.0 or BF[B_CLAMPED] != (1.0 if clamped else 0.0)
 
 
 @jit
@@ -303,6 +312,22 @@ def bdf_update_differences(D, BF, K, n):
 
 
 @jit
+def bdf_order_norms(D, BF, y0, y1, n, rtol, atol, scale, pzero):
+    """Error estimates at orders k-1 and k+1 from the differences (inf where that order does
+    not exist)."""
+    order = np.int64(BF[B_ORDER])
+    if order > 1:
+        e_m = _wnorm(BDF_ERROR_CONST[order - 1], D[order], y0, y1, n, rtol, atol, scale, pzero)
+    else:
+        e_m = np.inf
+    if order < MAX_ORDER:
+        e_p = _wnorm(BDF_ERROR_CONST[order + 1], D[order + 2], y0, y1, n, rtol, atol, scale, pzero)
+    else:
+        e_p = np.inf
+    return e_m, e_p
+
+
+@jit
 def bdf_select(D, BF, err, n_iter, y0, y1, n, rtol, atol, scale, pzero):
     """Order and step for the next step, once ``order + 1`` equal steps have been taken.
 
@@ -312,19 +337,14 @@ def bdf_select(D, BF, err, n_iter, y0, y1, n, rtol, atol, scale, pzero):
     order = np.int64(BF[B_ORDER])
     if BF[B_EQUAL] < order + 1:
         return BF[B_H]
-    if order > 1:
-        e_m = _wnorm(BDF_ERROR_CONST[order - 1], D[order], y0, y1, n, rtol, atol, scale, pzero)
-    else:
-        e_m = np.inf
-    if order < MAX_ORDER:
-        e_p = _wnorm(BDF_ERROR_CONST[order + 1], D[order + 2], y0, y1, n, rtol, atol, scale, pzero)
-    else:
-        e_p = np.inf
-    return _apply_selection(D, BF, e_m, err, e_p, n_iter, n)
+    e_m, e_p = bdf_order_norms(D, BF, y0, y1, n, rtol, atol, scale, pzero)
+    return bdf_apply_selection(D, BF, e_m, err, e_p, n_iter, n)
 
 
 @jit
-def _apply_selection(D, BF, e_m, e_0, e_p, n_iter, n):
+def bdf_apply_selection(D, BF, e_m, e_0, e_p, n_iter, n):
+    """Move to the order whose error estimate (``e_m``, ``e_0``, ``e_p`` at orders k-1, k,
+    k+1) allows the longest step, and to that step; returns it (ms)."""
     order = np.int64(BF[B_ORDER])
     f_m = e_m ** (-1.0 / order)
     f_0 = e_0 ** (-1.0 / (order + 1))

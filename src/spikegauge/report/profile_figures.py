@@ -129,7 +129,10 @@ def plot_convergence(table: pd.DataFrame, doc: dict) -> Figure:
             return ": too few points to fit"
         if f["note"]:
             return f": {f['note']}"
-        return f": slope {f['slope']:.2f} (expected {f['expected']:.3g})"
+        expected = f["expected"]   # None (NaN in profile.json) when no order is known
+        if expected is None or not np.isfinite(expected):
+            return f": slope {f['slope']:.2f} (no expected order known)"
+        return f": slope {f['slope']:.2f} (expected {expected:.3g})"
 
     fixed = rows[rows["strategy"] == "fixed"]
     for i, ((st, cr, de), r) in enumerate(fixed.groupby(["stepper", "crossing", "delivery"], sort=True)):
