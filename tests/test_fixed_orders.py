@@ -9,9 +9,9 @@ Outside references:
   Neurosci 11:111-119): euler + linear 1, rk2 + linear 2, rk4 + linear 2
   (the interpolation caps the order), rk4 + hermite 4; without interpolation
   the error is quantised to the grid.
-* The implicit trapezoidal rule is second order (textbook, e.g. Hairer &
-  Wanner, Solving ODEs II, IV.3); with Hermite crossing (third-order
-  interpolation, Hansel et al. 1998) its spike times are second order.
+* The implicit trapezoidal rule is second order (textbook); with Hermite
+  crossing (third-order interpolation, Hansel et al. 1998) its spike times
+  are second order.
 * On a network, the exact event-driven reference (Rotter & Diesmann 1999
   propagator; itself checked against a scipy brentq twin in
   test_exact_reference.py).

@@ -17,7 +17,9 @@ evaluation per step.
 Codes (runtime, so one compiled kernel serves every stepper):
 
 ``trapezoidal`` is the implicit trapezoidal rule (Crank-Nicolson; second
-order, A-stable; textbook, e.g. Hairer & Wanner, Solving ODEs II, IV.3):
+order and A-stable, textbook facts; not L-stable, so a step much longer than
+a fast time constant leaves that component oscillating, where backward Euler
+damps it):
 z = y + h/2 (f(y) + f(z)), solved by Newton's method with the model's
 Jacobian. Its spike times are second order with the Hermite crossing, which
 has the derivative at both step ends (Hansel et al. 1998 for the
