@@ -129,7 +129,7 @@ def lif_cell(t_stop, events=()):
     return model_network("lif-current", p, [[-65.0, 0.0, 0.0]], t_stop, events=events, d_min_ms=1.0)
 
 
-@pytest.mark.parametrize("stepper", ["bs32", "dp54", "rodas3"])
+@pytest.mark.parametrize("stepper", ["bs32", "dp54", "rodas3", "bdf"])
 @pytest.mark.parametrize("cls", [LocalAdaptiveKernel, GlobalAdaptiveKernel])
 def test_lif_constant_current_closed_form(cls, stepper):
     # LIF under constant current (textbook closed form, ../shared/CHECKS.md): first spike at
@@ -145,13 +145,14 @@ def test_lif_constant_current_closed_form(cls, stepper):
     assert np.max(np.abs(got - expect)) < 1e-6
 
 
-def test_lif_single_cell_global_equals_local_with_events():
+@pytest.mark.parametrize("stepper", ["dp54", "bdf"])
+def test_lif_single_cell_global_equals_local_with_events(stepper):
     # reset, refractory clamp and arrivals: still one method for one cell (DESIGN.md)
     ev = [(3.3, 0, RECEPTOR_EXC, 200.0), (17.25, 0, RECEPTOR_INH, 300.0),
           (40.0, 0, RECEPTOR_CURRENT, -400.0), (41.5, 0, RECEPTOR_EXC, 500.0)]
     net = lif_cell(80.0, ev)
-    a, _ = run(LocalAdaptiveKernel, net, 80.0, rtol=1e-6)
-    b, _ = run(GlobalAdaptiveKernel, net, 80.0, rtol=1e-6)
+    a, _ = run(LocalAdaptiveKernel, net, 80.0, stepper=stepper, rtol=1e-6)
+    b, _ = run(GlobalAdaptiveKernel, net, 80.0, stepper=stepper, rtol=1e-6)
     assert a.time_ms.size == b.time_ms.size > 3
     assert np.max(np.abs(a.time_ms - b.time_ms)) <= 1e-9
 
@@ -227,22 +228,28 @@ def three_cell():
     return dict(net=net, ref=restarted_reference(net, 100.0))
 
 
-def test_three_cell_network_matches_restarted_solve_ivp(three_cell):
-    # scipy.integrate.solve_ivp DOP853 (rtol = atol = 1e-12) restarted at every arrival
+@pytest.mark.parametrize("cls,stepper,tol_ms", [(LocalAdaptiveKernel, "dp54", 1e-6),
+                                                 (LocalAdaptiveKernel, "bdf", 1e-5),
+                                                 (GlobalAdaptiveKernel, "bdf", 1e-5)])
+def test_three_cell_network_matches_restarted_solve_ivp(three_cell, cls, stepper, tol_ms):
+    # scipy.integrate.solve_ivp DOP853 (rtol = atol = 1e-12) restarted at every arrival; bdf
+    # (at most fifth order, restarted at every arrival) gets a looser bound at the same rtol
     net, ref = three_cell["net"], three_cell["ref"]
-    res, k = run(LocalAdaptiveKernel, net, 100.0, record_steps=[0, 1, 2])
+    res, k = run(cls, net, 100.0, stepper=stepper, record_steps=[0, 1, 2])
     assert all(r.size >= 3 for r in ref)
     for c in range(3):
         got = spikes_of(res, c)
         assert got.size == ref[c].size
-        assert np.max(np.abs(got - ref[c])) < 1e-6
+        assert np.max(np.abs(got - ref[c])) < tol_ms
 
 
+@pytest.mark.parametrize("stepper", ["dp54", "bdf"])
 @pytest.mark.parametrize("cls", [LocalAdaptiveKernel, GlobalAdaptiveKernel])
-def test_every_arrival_is_a_step_boundary(three_cell, cls):
-    # DESIGN.md: every arrival and drive discontinuity ends a step exactly
+def test_every_arrival_is_a_step_boundary(three_cell, cls, stepper):
+    # DESIGN.md: every arrival and drive discontinuity ends a step exactly; bdf restarts there
+    # at order 1 (Lytton & Hines 2005: a multistep method cannot step across a discontinuity)
     net = three_cell["net"]
-    res, k = run(cls, net, 100.0, rtol=1e-6, record_steps=[0, 1, 2])
+    res, k = run(cls, net, 100.0, stepper=stepper, rtol=1e-6, record_steps=[0, 1, 2])
     trace = k.step_trace()
     for c in range(3):
         starts = set(trace.time_ms[(trace.cell == c) & trace.accepted])
@@ -254,6 +261,10 @@ def test_every_arrival_is_a_step_boundary(three_cell, cls):
         arrivals = [a for a in arrivals if a < 100.0]
         assert len(arrivals) > 5
         assert all(a in starts for a in arrivals)
+        if stepper == "bdf":
+            acc_c = trace[(trace.cell == c) & trace.accepted]
+            at_arrival = acc_c[acc_c.time_ms.isin(arrivals)]
+            assert (at_arrival["order"] == 1).all() and len(at_arrival) == len(set(arrivals))
         # and the trace tiles time: every accepted step starts where the previous one ended
         acc = trace[(trace.cell == c) & trace.accepted]
         ends = (acc.time_ms + acc.h_ms).to_numpy()
@@ -277,6 +288,7 @@ def hh_200():
     ("dp54", [1e-4, 1e-5, 1e-6, 1e-7, 1e-8]),
     ("bs32", [1e-4, 1e-5, 1e-6, 1e-7, 1e-8]),
     ("rodas3", [1e-4, 1e-5, 1e-6, 1e-7, 1e-8]),
+    ("bdf", [1e-4, 1e-5, 1e-6, 1e-7, 1e-8]),
 ])
 def test_tolerance_proportionality_single_cell(hh_200, stepper, rtols):
     # RMS spike-time error against solve_ivp DOP853 (1e-12) falls in proportion to rtol
@@ -288,7 +300,7 @@ def test_tolerance_proportionality_single_cell(hh_200, stepper, rtols):
     assert 0.6 <= slope <= 1.2, (stepper, errs)
 
 
-@pytest.mark.parametrize("stepper", ["dp54", "bs32", "rodas3"])
+@pytest.mark.parametrize("stepper", ["dp54", "bs32", "rodas3", "bdf"])
 def test_tolerance_proportionality_network(three_cell, stepper):
     # the same on the 3-cell network against the restarted solve_ivp reference
     net, ref = three_cell["net"], three_cell["ref"]
@@ -404,8 +416,9 @@ def test_local_takes_fewer_cell_steps_than_global_and_global_grows_with_events()
 
 # ------------------------------------------------------------- determinism
 
-@pytest.mark.parametrize("cls", [LocalAdaptiveKernel, GlobalAdaptiveKernel])
-def test_bit_identical_for_one_and_two_threads(cls):
+@pytest.mark.parametrize("cls,stepper", [(LocalAdaptiveKernel, "dp54"), (GlobalAdaptiveKernel, "dp54"),
+                                          (LocalAdaptiveKernel, "bdf"), (GlobalAdaptiveKernel, "bdf")])
+def test_bit_identical_for_one_and_two_threads(cls, stepper):
     # DESIGN.md: per-cell work in fixed chunks, reductions in cell order
     net = sparse_net(70, 30.0, seed=9)
     before = numba.get_num_threads()
@@ -413,7 +426,7 @@ def test_bit_identical_for_one_and_two_threads(cls):
     try:
         for threads in (1, 2):
             numba.set_num_threads(threads)
-            res = run(cls, net, 30.0, rtol=1e-5)[0]
+            res = run(cls, net, 30.0, stepper=stepper, rtol=1e-5)[0]
             out.append((res.cell.copy(), res.time_ms.copy(), res.counters))
     finally:
         numba.set_num_threads(before)

@@ -2,9 +2,10 @@
 
 * explicit fixed step (euler too large a step on Hodgkin–Huxley): "diverged at
   t" with the spikes up to then;
-* backward Euler: a failed Newton iteration;
+* backward Euler and the trapezoidal rule: a failed Newton iteration;
 * adaptive explicit (dp54, bs32) and Rosenbrock (rodas3): the minimum step or
-  the maximum step count, naming the cell and the time.
+  the maximum step count, naming the cell and the time;
+* bdf: a Newton failure the step reduction cannot cure.
 
 The adaptive limits are the kernels' own parameters (``min_step_ms``,
 ``max_steps``); ``simulate`` uses their defaults, so the tests put a kernel
@@ -86,13 +87,14 @@ def test_explicit_fixed_step_too_large_diverges_with_spikes_until_then(tmp_path,
     assert len(run.spikes) >= n and len(run.spikes) > 0
 
 
-def test_backward_euler_reports_failed_newton(tmp_path):
-    # At dt 1 ms the Newton iteration of backward Euler on HH does not converge in its
-    # iteration budget: a result naming the implicit stepper, not an exception.
-    settings = dict(strategy="fixed", stepper="backward-euler", dt_ms=1.0, crossing="linear",
-                    delivery="exact")
+@pytest.mark.parametrize("stepper,crossing", [("backward-euler", "linear"), ("trapezoidal", "hermite")])
+def test_implicit_fixed_step_reports_failed_newton(tmp_path, stepper, crossing):
+    # At dt 1 ms the Newton iteration of backward Euler and of the trapezoidal rule on HH
+    # does not converge in its iteration budget: a result naming the implicit stepper, not an
+    # exception.
+    settings = dict(strategy="fixed", stepper=stepper, dt_ms=1.0, crossing=crossing, delivery="exact")
     run = spikegauge.simulate(HH, t_stop_ms=50.0, **settings)
-    _check_diverged(run, "Newton iteration of the implicit stepper failed", "backward-euler", tmp_path)
+    _check_diverged(run, "Newton iteration of the implicit stepper failed", stepper, tmp_path)
 
 
 @pytest.mark.parametrize("strategy", ["global-adaptive", "local-adaptive"])
@@ -122,6 +124,16 @@ def test_rosenbrock_reports_minimum_step_or_step_count(tmp_path, kernel_limits, 
     run = spikegauge.simulate(HH, strategy=strategy, stepper="rodas3", rtol=1e-6, t_stop_ms=100.0)
     why = "minimum step" if "min_step_ms" in limit else "maximum number of steps"
     _check_diverged(run, why, "Rosenbrock", tmp_path)
+
+
+@pytest.mark.parametrize("strategy", ["global-adaptive", "local-adaptive"])
+def test_bdf_reports_failed_newton(tmp_path, kernel_limits, strategy):
+    # BDF halves its step when Newton fails with a fresh Jacobian; a failure that halving
+    # cannot cure before the minimum step (0.2 ms here, far above what an HH spike needs) ends
+    # the run as diverged, naming the implicit stepper's Newton iteration.
+    kernel_limits(min_step_ms=0.2)
+    run = spikegauge.simulate(HH, strategy=strategy, stepper="bdf", rtol=0.1, t_stop_ms=100.0)
+    _check_diverged(run, "Newton iteration of the implicit stepper failed", "bdf", tmp_path)
 
 
 def test_diverged_run_through_the_command_line(tmp_path):

@@ -30,6 +30,7 @@ SETTINGS = [
     ("rk4", "hermite", 0.05),
     ("expeuler", "linear", 0.1),      # no block form: every cell through the single-cell step
     ("backward-euler", "step", 0.1),
+    ("trapezoidal", "hermite", 0.1),  # implicit, no block form
 ]
 T_STOP_MS = 60.0
 
@@ -111,7 +112,8 @@ def test_stop_time_off_the_grid_cuts_the_last_step():
     assert block.time_ms.max() <= 30.04
 
 
-@pytest.mark.parametrize("stepper,crossing", [("euler", "step"), ("rk4", "linear"), ("rk2", "hermite")])
+@pytest.mark.parametrize("stepper,crossing", [("euler", "step"), ("rk4", "linear"), ("rk2", "hermite"),
+                                              ("trapezoidal", "hermite")])
 def test_bit_identical_for_any_thread_count_and_block_size(stepper, crossing):
     net = build_network(parse_scenario(_two_group_text(t_ref_ms=2.0, size=150), source="inline.toml"))
     kernel = FixedStepKernel(net, 0.1, stepper, crossing, "grid")

@@ -9,6 +9,9 @@ Outside references:
   Neurosci 11:111-119): euler + linear 1, rk2 + linear 2, rk4 + linear 2
   (the interpolation caps the order), rk4 + hermite 4; without interpolation
   the error is quantised to the grid.
+* The implicit trapezoidal rule is second order (textbook); with Hermite
+  crossing (third-order interpolation, Hansel et al. 1998) its spike times
+  are second order.
 * On a network, the exact event-driven reference (Rotter & Diesmann 1999
   propagator; itself checked against a scipy brentq twin in
   test_exact_reference.py).
@@ -32,9 +35,10 @@ from spikegauge.models.base import P_TREF, P_VRESET, P_VTH
 DTS = (0.05, 0.1, 0.2, 0.4, 0.8)
 ROUND_OFF_FLOOR_MS = 1e-10
 ORDER_TOL = 0.3
-# (stepper, crossing, published order: Hansel et al. 1998; Shelley & Tao 2001)
+# (stepper, crossing, published order: Hansel et al. 1998; Shelley & Tao 2001; the
+# trapezoidal rule's order 2 is textbook)
 ORDERS = [("euler", "linear", 1.0), ("rk2", "linear", 2.0), ("rk4", "linear", 2.0),
-          ("rk4", "hermite", 4.0)]
+          ("rk4", "hermite", 4.0), ("trapezoidal", "hermite", 2.0)]
 
 
 @pytest.fixture(scope="module", autouse=True)

@@ -102,7 +102,9 @@ def test_default_sweep_size_and_pruning():
     sweep = default_sweep(scen, d_min_ms=0.8)
     fixed = [s for s in sweep if s["strategy"] == "fixed"]
     adaptive = [s for s in sweep if s["strategy"] != "fixed"]
-    assert len(sweep) <= 60
+    assert len(sweep) <= 75
+    assert {(s["strategy"], s["stepper"]) for s in sweep} >= {
+        ("fixed", "trapezoidal"), ("local-adaptive", "bdf"), ("global-adaptive", "bdf")}
     assert sorted({s["dt_ms"] for s in fixed}) == [0.0125, 0.025, 0.05, 0.1, 0.2]
     assert {s["rtol"] for s in adaptive} == {1e-2, 1e-3, 1e-4, 1e-5, 1e-6}
     # grid delivery needs dt <= the smallest delay: the default leaves those out

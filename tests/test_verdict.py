@@ -110,6 +110,36 @@ def test_event_set_adaptive_family_is_labelled_not_fitted_against_an_order():
     assert "Higham 1991" in fits["local-adaptive"]["source"]
 
 
+def test_order_table_expects_order_two_of_trapezoidal_and_proportionality_of_bdf():
+    # the trapezoidal rule is second order (textbook; Hermite crossing does not cap it, Hansel et
+    # al. 1998); bdf's expected slope on rtol is tolerance proportionality (Shampine & Reichelt 1997)
+    dts = 0.2 / 2.0 ** np.arange(4)
+    rtols = [1e-3, 1e-4, 1e-5, 1e-6]
+    rows = [_row(i, "fixed", cpu_s=0.01, work=1.0 / dt, jitter=0.5 * dt ** 2, dt_ms=dt, stepper="trapezoidal",
+                 crossing="hermite") for i, dt in enumerate(dts)]
+    for sg in ("local-adaptive", "global-adaptive"):
+        rows += [_row(10 + i, sg, cpu_s=0.1, work=1000 * 3 ** i, jitter=r, rtol=r, stepper="bdf",
+                      crossing="dense", steps=100 * 3 ** i) for i, r in enumerate(rtols)]
+    fits = {(f["strategy"], f["stepper"]): f for f in fitted_orders(pd.DataFrame(rows))}
+    trap = fits[("fixed", "trapezoidal")]
+    assert trap["expected"] == 2.0 and trap["slope"] == pytest.approx(2.0)
+    assert "trapezoidal" in trap["source"]
+    for sg in ("local-adaptive", "global-adaptive"):
+        f = fits[(sg, "bdf")]
+        assert f["expected"] == 1.0 and f["slope"] == pytest.approx(1.0)
+        assert "Shampine & Reichelt 1997" in f["source"]
+
+
+def test_verdict_ranks_trapezoidal_and_bdf_like_the_others():
+    # the new steppers go through the same ranking by CPU seconds
+    v = _verdict([_row(0, "fixed", cpu_s=0.030, work=4000, jitter=0.05, stepper="trapezoidal",
+                       crossing="hermite"),
+                  _row(1, "local-adaptive", cpu_s=0.010, work=1000, jitter=0.05, stepper="bdf",
+                       crossing="dense", steps=300)])
+    assert v["outcome"] == "adaptive" and v["recommended"]["point"] == 1
+    assert "local-adaptive #1" in v["text"]
+
+
 def _fake_runs(cpu_times, status="ok"):
     it = iter(cpu_times)
     calls = []

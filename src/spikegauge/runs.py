@@ -41,7 +41,7 @@ class Run:
     message : str
         For a diverged run, where and why.
     cost : dict
-        steps, rhs_evals, newton_iters, arrivals, rejected_steps, wall_s (loop only,
+        steps, rhs_evals, newton_iters, arrivals, rejected_steps, jacobian_evals, wall_s (loop only,
         compilation excluded), spikes.
     meta : dict
         Scenario name, digest and text, seed, versions.

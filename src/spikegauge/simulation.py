@@ -133,7 +133,7 @@ def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, d
     strategy : {"fixed", "global-adaptive", "local-adaptive", "exact"}, optional
         Default from the scenario's ``[integration]`` table, else ``"fixed"``.
     stepper, dt_ms, crossing, delivery : optional
-        Fixed step: stepper (euler, expeuler, rk2, rk4, backward-euler), time step (ms),
+        Fixed step: stepper (euler, expeuler, rk2, rk4, backward-euler, trapezoidal), time step (ms),
         crossing (step, linear, hermite), delivery (grid, exact).
     rtol, atol : float, optional
         Adaptive strategies: relative tolerance and absolute tolerance in units of
@@ -153,7 +153,8 @@ def simulate(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None, d
     progress : callable(t_ms) or None
         Called as the run advances.
     work_limit : float, optional
-        Stop once the work (rhs evaluations plus Newton iterations) exceeds this,
+        Stop once the work (rhs evaluations, Newton iterations and Jacobian evaluations)
+        exceeds this,
         at the end of a window; the run's status is then ``"stopped"``.
     open_loop : Run, (cell, time_ms) pair of arrays, path, or None
         Open loop: the network's recurrent input comes from these spikes (every

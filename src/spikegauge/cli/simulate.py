@@ -12,7 +12,7 @@ from .main import cli, progress_bar
 @click.argument("scenario", type=click.Path(dir_okay=False))
 @click.option("--strategy", type=click.Choice(["fixed", "global-adaptive", "local-adaptive", "exact"]),
               help="Integration strategy (default: the scenario's [integration] table, else fixed).")
-@click.option("--stepper", help="euler, expeuler, rk2, rk4, backward-euler (fixed); bs32, dp54, rodas3 (adaptive).")
+@click.option("--stepper", help="euler, expeuler, rk2, rk4, backward-euler, trapezoidal (fixed); bs32, dp54, rodas3, bdf (adaptive).")
 @click.option("--dt-ms", type=float, help="Time step of the fixed strategy (ms).")
 @click.option("--crossing", type=click.Choice(["step", "linear", "hermite", "dense"]),
               help="Threshold-crossing location.")

@@ -7,7 +7,10 @@
   size for the network, ``state.extra["global"]``.
 
 Both take a stepper with an error estimate and dense output (``bs32``,
-``dp54``, ``rodas3``; :mod:`spikegauge.integrate.tableaux`), ``rtol`` and
+``dp54``, ``rodas3``, :mod:`spikegauge.integrate.tableaux`; the multistep
+``bdf``, :mod:`spikegauge.integrate.bdf`, whose history, Jacobian and order
+are kept per cell in ``state.extra["bdf_D"]``, ``["bdf_J"]`` and
+``["bdf"]``), ``rtol`` and
 ``atol``; the absolute tolerance of state i is ``atol * scale_i``. Scales come
 from the models (:attr:`ModelSpec.scale`), from the caller, or, with
 ``auto_scale=True``, from a short pilot run (:func:`pilot_scales`).
@@ -26,6 +29,7 @@ from ..models import MODELS, model_by_code, physical_zero, state_scales
 from .adaptive_global import global_window
 from .adaptive_local import local_chunk, local_window_parallel
 from .adaptive_steppers import N_ROWS
+from .bdf import D_ROWS, N_BDF
 from .engine import default_boundaries
 from ..models import receptor_state_table
 from .step_control import controller_exponent
@@ -208,10 +212,10 @@ class _AdaptiveKernel:
                 snap = state.snapshot()
                 before = counters.copy()
             self._run(state, t0, t1, arrivals, spikes, counters, tr)
-            if not n_rows or tr[3].max() <= self._tr_cap:
+            if not n_rows or tr[4].max() <= self._tr_cap:
                 break
             # trace overflow: rerun the window with room for every step
-            self._tr_cap = 2 * int(tr[3].max())
+            self._tr_cap = 2 * int(tr[4].max())
             state.restore(snap)
             counters[:] = before
             spikes.count[:] = 0
@@ -220,17 +224,20 @@ class _AdaptiveKernel:
 
     # -- step trace --------------------------------------------------------------
     def step_trace(self) -> pd.DataFrame:
-        """Recorded steps: columns cell, time_ms (step start), h_ms, accepted.
+        """Recorded steps: columns cell, time_ms (step start), h_ms, accepted, order.
 
         Rejected attempts have ``accepted=False``; an accepted step cut short by
-        a reset crossing appears with its shortened length.
+        a reset crossing appears with its shortened length. ``order`` is the
+        order of the formula the step used (fixed for the one-step methods;
+        ``bdf``'s varies, and is 1 on the steps after a restart).
         """
         frames = [pd.DataFrame({"cell": np.full(t.size, c, dtype=np.int64), "time_ms": t, "h_ms": h,
-                                "accepted": a})
-                  for parts in self._trace_parts.values() for c, t, h, a in parts]
+                                "accepted": a, "order": o})
+                  for parts in self._trace_parts.values() for c, t, h, a, o in parts]
         if not frames:
             return pd.DataFrame({"cell": np.empty(0, np.int64), "time_ms": np.empty(0),
-                                 "h_ms": np.empty(0), "accepted": np.empty(0, bool)})
+                                 "h_ms": np.empty(0), "accepted": np.empty(0, bool),
+                                 "order": np.empty(0, np.int64)})
         df = pd.concat(frames, ignore_index=True)
         return df.sort_values(["cell", "time_ms"], kind="stable").reset_index(drop=True)
 
@@ -238,7 +245,7 @@ class _AdaptiveKernel:
         cap = self._tr_cap if n_rows else 1
         rows = max(n_rows, 1)
         return (np.empty((rows, cap)), np.empty((rows, cap)), np.zeros((rows, cap), dtype=np.bool_),
-                np.zeros(rows, dtype=np.int64))
+                np.zeros((rows, cap), dtype=np.int64), np.zeros(rows, dtype=np.int64))
 
     def _kernel_args(self):
         return (self.min_step_ms, self.max_step_ms, self.max_steps, self.order, self.expo)
@@ -253,7 +260,7 @@ class LocalAdaptiveKernel(_AdaptiveKernel):
     Parameters
     ----------
     network : Network
-    stepper : {"bs32", "dp54", "rodas3"}
+    stepper : {"bs32", "dp54", "rodas3", "bdf"}
     rtol : float
         Relative tolerance (states with a physical zero only).
     atol : float
@@ -282,10 +289,15 @@ class LocalAdaptiveKernel(_AdaptiveKernel):
 
     def _ensure_extra(self, state, t0):
         n = self.network.n_cells
+        width = self.network.y0.shape[1]
         # created lazily; if the first window is rerun, start it afresh
         if "h" not in state.extra or self._extra_made_at == t0:
             state.extra["h"] = np.zeros(n)
             state.extra["err_prev"] = np.full(n, 1e-4)
+            bdf = self.stepper_name == "bdf"
+            state.extra["bdf_D"] = np.zeros((n, D_ROWS, width) if bdf else (n, 0, 0))
+            state.extra["bdf_J"] = np.zeros((n, width, width) if bdf else (n, 0, 0))
+            state.extra["bdf"] = np.zeros((n, N_BDF))   # order 0: no history yet
             self._extra_made_at = t0
 
     def _run(self, state, t0, t1, arrivals, spikes, counters, tr):
@@ -299,22 +311,25 @@ class LocalAdaptiveKernel(_AdaptiveKernel):
                 float(t0), float(t1), self.rtol, self.atol,
                 arrivals.ptr, arrivals.time_ms, arrivals.receptor, arrivals.weight,
                 spikes.count, spikes.time_ms, counters, self.rstate,
-                slot, tr[0], tr[1], tr[2], tr[3], *self._kernel_args())
+                state.extra["bdf_D"], state.extra["bdf_J"], state.extra["bdf"],
+                slot, tr[0], tr[1], tr[2], tr[3], tr[4], *self._kernel_args())
         if n >= PARALLEL_MIN_CELLS and numba.get_num_threads() > 1:
             local_window_parallel(max(1, min(n, 8 * numba.get_num_threads())), *args)
         else:
             local_chunk(0, n, *args)
 
     def _trace_rows_of(self, tr):
-        return [(c, tr[0][k, :int(tr[3][k])].copy(), tr[1][k, :int(tr[3][k])].copy(),
-                 tr[2][k, :int(tr[3][k])].copy()) for k, c in enumerate(self.record_cells)]
+        return [(c, tr[0][k, :int(tr[4][k])].copy(), tr[1][k, :int(tr[4][k])].copy(),
+                 tr[2][k, :int(tr[4][k])].copy(), tr[3][k, :int(tr[4][k])].copy())
+                for k, c in enumerate(self.record_cells)]
 
 
 class GlobalAdaptiveKernel(_AdaptiveKernel):
     """Global adaptive strategy: one step size for the whole network.
 
     Parameters and attributes as :class:`LocalAdaptiveKernel`; ``max_steps``
-    counts the network's steps. ``record_steps`` lists cells as well: each
+    counts the network's steps. With ``bdf`` the network is one BDF system
+    (one step and one order; every event restarts every cell). ``record_steps`` lists cells as well: each
     gets the network's steps in :meth:`step_trace` (they are the same for all).
     """
 
@@ -329,6 +344,7 @@ class GlobalAdaptiveKernel(_AdaptiveKernel):
         self._JJ = np.empty((n, width, width))
         self._PIV = np.empty((n, width), dtype=np.int64)
         self._WORK = np.empty((n, 2, width))
+        self._LUC = np.empty(n)
 
     def _trace_rows(self):
         return 1 if self.record_cells else 0
@@ -337,6 +353,12 @@ class GlobalAdaptiveKernel(_AdaptiveKernel):
         if "global" not in state.extra or self._extra_made_at == t0:
             # [proposed step (0: estimate), PI memory, network steps taken]
             state.extra["global"] = np.array([0.0, 1e-4, 0.0])
+            n = self.network.n_cells
+            width = self.network.y0.shape[1]
+            bdf = self.stepper_name == "bdf"
+            state.extra["bdf_D"] = np.zeros((n, D_ROWS, width) if bdf else (n, 0, 0))
+            state.extra["bdf_J"] = np.zeros((n, width, width) if bdf else (n, 0, 0))
+            state.extra["bdf"] = np.zeros((n, N_BDF))   # order 0: no history yet
             self._extra_made_at = t0
 
     def _run(self, state, t0, t1, arrivals, spikes, counters, tr):
@@ -345,10 +367,13 @@ class GlobalAdaptiveKernel(_AdaptiveKernel):
                       state.upper, self._scale, self._pzero, state.n_states, float(t0), float(t1),
                       self.rtol, self.atol, arrivals.ptr, arrivals.time_ms, arrivals.receptor,
                       arrivals.weight, spikes.count, spikes.time_ms, counters, self.rstate,
-                      self._KK, self._MM, self._JJ, self._PIV, self._WORK,
-                      bool(self.record_cells), tr[0], tr[1], tr[2], tr[3], *self._kernel_args())
+                      self._KK, self._MM,
+                      state.extra["bdf_J"] if self.stepper_name == "bdf" else self._JJ,
+                      self._PIV, self._WORK, state.extra["bdf_D"], state.extra["bdf"], self._LUC,
+                      bool(self.record_cells), tr[0], tr[1], tr[2], tr[3], tr[4],
+                      *self._kernel_args())
 
     def _trace_rows_of(self, tr):
-        m = int(tr[3][0])
-        return [(c, tr[0][0, :m].copy(), tr[1][0, :m].copy(), tr[2][0, :m].copy())
-                for c in self.record_cells]
+        m = int(tr[4][0])
+        return [(c, tr[0][0, :m].copy(), tr[1][0, :m].copy(), tr[2][0, :m].copy(),
+                 tr[3][0, :m].copy()) for c in self.record_cells]

@@ -37,11 +37,15 @@ ROW_ERR = 9
 ROW_FSTAGE = 10
 ROW_DENSE = 11
 
-F1_ROW = np.array([3, 6, 6], dtype=np.int64)
-"""Row of f(y1) after :func:`finish_step`, by stepper code (bs32, dp54, rodas3)."""
+F1_ROW = np.array([3, 6, 6, 0], dtype=np.int64)
+"""Row of f(y1) after :func:`finish_step`, by stepper code (bs32, dp54, rodas3; bdf keeps no
+f(y1): its next step does not need it)."""
 
-DENSE_DEGREE = np.array([3, 4, 3], dtype=np.int64)
-"""Degree of the dense-output polynomial, by stepper code."""
+DENSE_DEGREE = np.array([3, 4, 3, 5], dtype=np.int64)
+"""Degree of the dense-output polynomial, by stepper code (bdf: at most; its current order)."""
+
+JACOBIANS_PER_TRIAL = np.array([0, 0, 1, 0], dtype=np.int64)
+"""Jacobian evaluations of one trial step, by stepper code (bdf counts its own)."""
 
 
 @jit

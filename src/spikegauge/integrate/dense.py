@@ -1,9 +1,10 @@
 """Threshold crossings on a stepper's dense output (crossing ``dense``).
 
 The adaptive steppers give, over each accepted step, the voltage as a
-polynomial in theta = (t - t_step) / h of degree at most four (the cubic
+polynomial in theta = (t - t_step) / h of degree at most five (the cubic
 Hermite interpolant of ``bs32`` and ``rodas3``, the quartic continuous
-extension of ``dp54``), in the power basis ``c[0] + c[1] th + ... + c[4] th^4``.
+extension of ``dp54``, the interpolating polynomial of ``bdf`` of its current
+order, 1 to 5), in the power basis ``c[0] + c[1] th + ... + c[5] th^5``.
 
 Upward crossings are found the way :func:`spikegauge.integrate.crossing.hermite_first_crossing`
 finds them, generalised to degree four: the polynomial's critical points split
@@ -12,14 +13,15 @@ at or above it holds exactly one upward crossing. A crossing and recrossing
 inside one step (a short spike whose peak lies between the step's ends) is
 therefore found even when both step ends lie below threshold. Critical points
 of a quartic are the roots of a cubic, found the same way one degree down
-(roots of its quadratic derivative bracket them), so no closed-form cubic
-formula with its cancellation problems is needed.
+(roots of its quadratic derivative bracket them), and those of a quintic the
+roots of a quartic, one degree further down, so no closed-form cubic or
+quartic formula with its cancellation problems is needed.
 """
 import numpy as np
 
 from .._numba import jit
 
-MAX_DEGREE = 4
+MAX_DEGREE = 5
 
 
 @jit
@@ -78,14 +80,14 @@ def _root_in(c, deg, a, b, rising):
 
 @jit
 def unit_critical_points(c, deg, out):
-    """Sorted roots in (0, 1) of the derivative of a polynomial of degree <= 4.
+    """Sorted roots in (0, 1) of the derivative of a polynomial of degree <= 5.
 
     Parameters
     ----------
     c : ndarray, shape (>= deg + 1,)
         Power-basis coefficients.
     deg : int
-    out : ndarray, shape (>= 3,)
+    out : ndarray, shape (>= 4,)
         Receives the critical points.
 
     Returns
@@ -110,8 +112,18 @@ def unit_critical_points(c, deg, out):
         return 0
     if dd == 2:
         return _quadratic_unit_roots(d[2], d[1], d[0], out)
-    # cubic derivative: the roots of its own derivative (a quadratic) split
-    # [0, 1] into monotone pieces, each holding at most one root
+    if dd == 3:
+        return _cubic_unit_roots(d, out)
+    return _quartic_unit_roots(d, out)
+
+
+@jit
+def _cubic_unit_roots(d, out):
+    """Sorted distinct roots in (0, 1) of the cubic ``d[0] + ... + d[3] x^3`` (``d[3] != 0``).
+
+    The roots of its own derivative (a quadratic) split [0, 1] into monotone
+    pieces, each holding at most one root.
+    """
     brk = np.empty(4)
     nb = _quadratic_unit_roots(3.0 * d[3], 2.0 * d[2], d[1], brk[1:])
     brk[0] = 0.0
@@ -124,6 +136,39 @@ def unit_critical_points(c, deg, out):
             r = _root_in(d, 3, brk[j], brk[j + 1], True)
         elif ga > 0.0 >= gb and brk[j] < brk[j + 1]:
             r = _root_in(d, 3, brk[j], brk[j + 1], False)
+        else:
+            continue
+        if 0.0 < r < 1.0 and (m == 0 or r > out[m - 1]):
+            out[m] = r
+            m += 1
+    return m
+
+
+@jit
+def _quartic_unit_roots(d, out):
+    """Sorted distinct roots in (0, 1) of the quartic ``d[0] + ... + d[4] x^4`` (``d[4] != 0``).
+
+    The roots of its derivative (a cubic, :func:`_cubic_unit_roots`) split
+    [0, 1] into monotone pieces, each holding at most one root.
+    """
+    dd = np.empty(4)
+    for k in range(1, 5):
+        dd[k - 1] = k * d[k]
+    brk = np.empty(5)
+    if dd[3] != 0.0:
+        nb = _cubic_unit_roots(dd, brk[1:])
+    else:
+        nb = _quadratic_unit_roots(dd[2], dd[1], dd[0], brk[1:])
+    brk[0] = 0.0
+    brk[nb + 1] = 1.0
+    m = 0
+    for j in range(nb + 1):
+        ga = poly_value(d, 4, brk[j])
+        gb = poly_value(d, 4, brk[j + 1])
+        if ga < 0.0 <= gb and brk[j] < brk[j + 1]:
+            r = _root_in(d, 4, brk[j], brk[j + 1], True)
+        elif ga > 0.0 >= gb and brk[j] < brk[j + 1]:
+            r = _root_in(d, 4, brk[j], brk[j + 1], False)
         else:
             continue
         if 0.0 < r < 1.0 and (m == 0 or r > out[m - 1]):
@@ -171,13 +216,13 @@ def upward_crossings(c, deg, level, th_max, out):
     c : ndarray, shape (>= deg + 1,)
         Power-basis coefficients of the voltage over the step.
     deg : int
-        Degree, at most 4.
+        Degree, at most 5.
     level : float
         Threshold (same unit as the polynomial).
     th_max : float
         Last theta searched (1 for the whole step).
     out : ndarray, shape (>= 3,)
-        Receives the crossing thetas in increasing order.
+        Receives the crossing thetas in increasing order (at most three).
 
     Returns
     -------
@@ -197,7 +242,7 @@ def upward_crossings(c, deg, level, th_max, out):
     for k in range(deg + 1):
         cc[k] = c[k]
     cc[0] -= level
-    pts = np.empty(5)
+    pts = np.empty(MAX_DEGREE + 1)
     ncrit = unit_critical_points(cc, deg, pts[1:])
     pts[0] = 0.0
     npts = 1 + ncrit

@@ -49,8 +49,9 @@ C_RHS = 1            # right-hand-side evaluations
 C_NEWTON = 2         # Newton iterations (implicit steppers)
 C_ARRIVALS = 3       # arrivals applied (synaptic and current events)
 C_REJECTED = 4       # rejected steps (adaptive)
-N_COUNTERS = 5
-COUNTER_NAMES = ("steps", "rhs_evals", "newton_iters", "arrivals", "rejected_steps")
+C_JACOBIAN = 5       # Jacobian evaluations (implicit steppers)
+N_COUNTERS = 6
+COUNTER_NAMES = ("steps", "rhs_evals", "newton_iters", "arrivals", "rejected_steps", "jacobian_evals")
 
 # Divergence codes (``CellState.div_code``).
 DIV_NONE = 0
@@ -442,15 +443,17 @@ def divergence(state: CellState, times: np.ndarray) -> tuple[np.ndarray, float, 
 
 
 def past_work_limit(counters: np.ndarray, work_limit) -> bool:
-    """Whether the work so far (rhs evaluations plus Newton iterations) exceeds ``work_limit``."""
+    """Whether the work so far (rhs evaluations, Newton iterations and Jacobian evaluations)
+    exceeds ``work_limit``."""
     if work_limit is None:
         return False
-    return int(counters[:, C_RHS].sum()) + int(counters[:, C_NEWTON].sum()) > work_limit
+    return (int(counters[:, C_RHS].sum()) + int(counters[:, C_NEWTON].sum())
+            + int(counters[:, C_JACOBIAN].sum()) > work_limit)
 
 
 def work_limit_message(t_ms: float, work_limit: float) -> str:
     return (f"stopped at t = {t_ms:.6g} ms: the work passed the limit of {work_limit:.4g} "
-            f"(rhs evaluations + Newton iterations)")
+            f"(rhs evaluations + Newton iterations + Jacobian evaluations)")
 
 
 def default_boundaries(d_min_ms: float, t_stop_ms: float) -> np.ndarray:

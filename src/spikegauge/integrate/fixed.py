@@ -30,8 +30,8 @@ from ..models.base import P_IEXT, P_TREF, P_VRESET, P_VTH, RECEPTOR_CURRENT
 from ..models.kernels import reset, rhs
 from .crossing import (CROSS_HERMITE, CROSS_LINEAR, CROSS_STEP, CROSSING_CODES,
                        hermite_first_crossing, hermite_value, linear_crossing)
-from .engine import (C_ARRIVALS, C_NEWTON, C_RHS, C_STEPS, DIV_BOUNDS, DIV_MAX_STEPS, DIV_NEWTON,
-                     N_COUNTERS)
+from .engine import (C_ARRIVALS, C_JACOBIAN, C_NEWTON, C_RHS, C_STEPS, DIV_BOUNDS, DIV_MAX_STEPS,
+                     DIV_NEWTON, N_COUNTERS)
 from .steppers import STEPPER_CODES, fixed_step
 
 SNAP_MS = 1e-9
@@ -280,6 +280,7 @@ def _fixed_window(code, Y, P, refr, div_time, div_code, lower, upper, scale, nst
             for j in range(N_COUNTERS):
                 counters[i, j] += cnt[j]
             counters[i, C_NEWTON] += ncount[0]
+            counters[i, C_JACOBIAN] += ncount[0]  # full Newton: a Jacobian per iteration
             refr[i] = r
             if dcode != 0:
                 div_time[i] = tdiv

@@ -39,7 +39,8 @@ from ..models import receptor_state_table, state_bounds
 from ..models.base import P_IEXT, P_TREF, P_VRESET, P_VTH, RECEPTOR_CURRENT
 from ..models.kernels import N_DERIVED, derive_cols, reset, rhs_cols
 from .crossing import CROSS_HERMITE, CROSS_STEP, hermite_first_crossing, linear_crossing
-from .engine import C_ARRIVALS, C_NEWTON, C_RHS, C_STEPS, DIV_BOUNDS, N_COUNTERS, divergence
+from .engine import (C_ARRIVALS, C_JACOBIAN, C_NEWTON, C_RHS, C_STEPS, DIV_BOUNDS, N_COUNTERS,
+                     divergence)
 from .fixed import MAX_RESETS_PER_STEP, _fixed_cell, _snap, grid_index, grid_indices
 from .steppers import EULER, RK2, RK4
 
@@ -319,6 +320,7 @@ def _advance_chunk(n0, n1, t_stop, dt, mask, stepper, crossing, t_first, t_last,
                     for q in range(cnt1.size):
                         cnt[q] += cnt1[q]
                     cnt[C_NEWTON] += ncount[0]
+                    cnt[C_JACOBIAN] += ncount[0]  # full Newton: a Jacobian per iteration
                     refr[i] = r
                     if dcode != 0:
                         div_time[i] = tdiv

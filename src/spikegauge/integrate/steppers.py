@@ -15,6 +15,15 @@ crossing check of the previous step, so Hermite crossing costs no extra
 evaluation per step.
 
 Codes (runtime, so one compiled kernel serves every stepper):
+
+``trapezoidal`` is the implicit trapezoidal rule (Crank-Nicolson; second
+order and A-stable, textbook facts; not L-stable, so a step much longer than
+a fast time constant leaves that component oscillating, where backward Euler
+damps it):
+z = y + h/2 (f(y) + f(z)), solved by Newton's method with the model's
+Jacobian. Its spike times are second order with the Hermite crossing, which
+has the derivative at both step ends (Hansel et al. 1998 for the
+interpolation).
 """
 import numpy as np
 
@@ -27,9 +36,11 @@ EXPEULER = 1
 RK2 = 2
 RK4 = 3
 BACKWARD_EULER = 4
+TRAPEZOIDAL = 5
 STEPPER_CODES = {"euler": EULER, "expeuler": EXPEULER, "rk2": RK2, "rk4": RK4,
-                 "backward-euler": BACKWARD_EULER}
-STEPPER_ORDER = {"euler": 1, "expeuler": 1, "rk2": 2, "rk4": 4, "backward-euler": 1}
+                 "backward-euler": BACKWARD_EULER, "trapezoidal": TRAPEZOIDAL}
+STEPPER_ORDER = {"euler": 1, "expeuler": 1, "rk2": 2, "rk4": 4, "backward-euler": 1,
+                 "trapezoidal": 2}
 
 NEWTON_MAX_ITERS = 12
 NEWTON_TOL = 1e-10
@@ -50,7 +61,7 @@ def fixed_step(stepper, code, y, p, clamped, h, n, f0, f1, f2, f3, ys, y0, have_
     """Advance one cell's state ``y[:n]`` over ``h`` ms with the given stepper.
 
     Returns the number of right-hand-side evaluations, or -1 when the Newton
-    iteration of backward Euler failed (``y`` is then left at the last iterate).
+    iteration of backward Euler or the trapezoidal rule failed (``y`` is then left at the last iterate).
     ``newton_count[0]`` is incremented by the Newton iterations made.
 
     Inlined into its caller: as a separate function, the reference counts of
@@ -58,8 +69,11 @@ def fixed_step(stepper, code, y, p, clamped, h, n, f0, f1, f2, f3, ys, y0, have_
     """
     nf = 0
     if stepper == BACKWARD_EULER:
-        return _backward_euler(code, y, p, clamped, h, n, f0, f1, y0, have_f0, scale, J,
-                               newton_count)
+        return _implicit(code, y, p, clamped, h, n, f0, f1, y0, have_f0, scale, J, newton_count,
+                         False)
+    if stepper == TRAPEZOIDAL:
+        return _implicit(code, y, p, clamped, h, n, f0, f1, y0, have_f0, scale, J, newton_count,
+                         True)
     if stepper == EXPEULER:
         split(code, y, p, clamped, f0, f1)
         for s in range(n):
@@ -97,12 +111,20 @@ def fixed_step(stepper, code, y, p, clamped, h, n, f0, f1, f2, f3, ys, y0, have_
 
 
 @jit
-def _backward_euler(code, y, p, clamped, h, n, f0, f1, y0, have_f0, scale, J, newton_count):
-    """Backward Euler: Newton on G(z) = z - y - h f(z) = 0 from the explicit Euler guess."""
+def _implicit(code, y, p, clamped, h, n, f0, f1, y0, have_f0, scale, J, newton_count, trapezoid):
+    """Backward Euler, G(z) = z - y - h f(z) = 0, or the trapezoidal rule,
+    G(z) = z - y - h/2 (f(y) + f(z)) = 0: Newton from the explicit Euler guess,
+    with the Jacobian at every iterate (full Newton: a step's few iterations
+    converge quadratically, where a frozen Jacobian would need more of them
+    at the large steps these steppers are chosen for).
+
+    ``f0`` keeps f(y) (the trapezoidal rule needs it in every residual).
+    """
     nf = 0
     if not have_f0:
         rhs(code, y, p, clamped, f0)
         nf += 1
+    c = 0.5 * h if trapezoid else h
     for s in range(n):
         y0[s] = y[s]                      # y at the step start
         y[s] = y[s] + h * f0[s]           # initial iterate
@@ -115,9 +137,12 @@ def _backward_euler(code, y, p, clamped, h, n, f0, f1, y0, have_f0, scale, J, ne
         jac(code, y, p, clamped, J)
         newton_count[0] += 1
         for s in range(n):
-            r[s] = -(y[s] - y0[s] - h * f1[s])
+            g = y[s] - y0[s] - c * f1[s]
+            if trapezoid:
+                g -= c * f0[s]
+            r[s] = -g
             for q in range(n):
-                A[s, q] = -h * J[s, q]
+                A[s, q] = -c * J[s, q]
             A[s, s] += 1.0
         if not lu_factor(A, piv, n):
             return -1
@@ -132,4 +157,3 @@ def _backward_euler(code, y, p, clamped, h, n, f0, f1, y0, have_f0, scale, J, ne
         if done:
             return nf
     return -1
-

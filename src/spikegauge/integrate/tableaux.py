@@ -130,7 +130,9 @@ def rosenbrock_original(a_t: np.ndarray, c_t: np.ndarray, gamma: float, m: np.nd
 BS32 = 0
 DP54 = 1
 RODAS3 = 2
-ADAPTIVE_STEPPER_CODES = {"bs32": BS32, "dp54": DP54, "rodas3": RODAS3}
+BDF = 3
+"""Variable-order BDF: a multistep method, no tableau (:mod:`spikegauge.integrate.bdf`)."""
+ADAPTIVE_STEPPER_CODES = {"bs32": BS32, "dp54": DP54, "rodas3": RODAS3, "bdf": BDF}
 
 
 @dataclass(frozen=True)
@@ -141,7 +143,8 @@ class StepperInfo:
     ----------
     name : str
     order : int
-        Order of the propagated solution.
+        Order of the propagated solution (``bdf``: the order it starts, and
+        restarts, at; it varies from 1 to 5).
     error_order : int
         Order of the embedded solution; the local error estimate is
         O(h^(error_order + 1)), which sets the controller's exponent.
@@ -162,4 +165,5 @@ STEPPER_INFO = {
     "bs32": StepperInfo("bs32", 3, 2, 3, False),
     "dp54": StepperInfo("dp54", 5, 4, 6, False),
     "rodas3": StepperInfo("rodas3", 3, 2, 3, True),
+    "bdf": StepperInfo("bdf", 1, 1, 1, True),
 }

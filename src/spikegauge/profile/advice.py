@@ -23,7 +23,7 @@ new size, so ``random`` pathways grow with the network):
   network's event rate, and every step costs all ``N`` cells: cell-steps
   ``N T (g0 + E)``, which grows as ``N^2``.
 
-Work (right-hand sides plus Newton iterations) is cell-steps times the
+Work (right-hand sides, Newton iterations and Jacobians) is cell-steps times the
 setting's measured work per cell-step; CPU seconds (one thread) are cell-steps
 times the setting's measured CPU seconds per cell-step in the profile (event
 handling included), and the setting with the least predicted CPU seconds is

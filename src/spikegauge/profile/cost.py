@@ -12,7 +12,7 @@ first run of a kernel in a process pays for more than its compilation
 (about 20 ms here, loading and first-touch of its code and data). Repeats give bit-identical spikes; only the
 first run is stored.
 
-``work`` (right-hand-side evaluations plus Newton iterations) stays beside
+``work`` (right-hand-side evaluations, Newton iterations and Jacobian evaluations) stays beside
 the seconds as the figure that carries over to another machine.
 """
 from __future__ import annotations

@@ -4,8 +4,8 @@ A front holds the settings of one strategy that no other setting of that
 strategy beats on both cost and error
 (:func:`spikegauge.analysis.comparison.pareto_front`). Cost is either the CPU
 seconds of a run on one thread (``cpu_s``, what the verdict ranks by) or
-machine-independent work (right-hand-side evaluations plus Newton /
-linear-solve iterations, the ``work`` column).
+machine-independent work (right-hand-side evaluations, Newton / linear-solve iterations and
+Jacobian evaluations, the ``work`` column).
 
 Order fits leave out what cannot measure an order: points with a missed or
 extra spike, and points whose error is below ``REFERENCE_FLOOR_FACTOR`` times
@@ -48,6 +48,14 @@ TOLERANCE_PROPORTIONALITY_SOURCE = (
     "control with local extrapolation, after Stetter; stated for explicit Runge-Kutta pairs, "
     "the same argument for the Rosenbrock scheme)")
 
+VARIABLE_ORDER_SOURCES = {
+    "bdf": (1.0, "tolerance proportionality, the aim of variable-order BDF codes (Shampine & Reichelt "
+                 "1997, SIAM J Sci Comput 18:1; Brown, Byrne & Hindmarsh 1989, SIAM J Sci Stat "
+                 "Comput 10:1038)"),
+}
+"""Expected slope of error against rtol, with its source, of steppers whose order varies (the
+one-step methods' slope follows from their orders, :data:`TOLERANCE_PROPORTIONALITY_SOURCE`)."""
+
 FIXED_ORDER_SOURCES = {
     ("rk2", "linear"): (2.0, "Hansel et al. 1998; Shelley & Tao 2001"),
     ("rk4", "hermite"): (4.0, "Shelley & Tao 2001"),
@@ -55,6 +63,8 @@ FIXED_ORDER_SOURCES = {
     ("euler", "linear"): (1.0, "common practice (first-order stepper)"),
     ("expeuler", "linear"): (1.0, "common practice (first-order stepper)"),
     ("backward-euler", "linear"): (1.0, "common practice (first-order stepper)"),
+    ("trapezoidal", "hermite"): (2.0, "textbook order of the trapezoidal rule; Hansel et al. 1998 "
+                                      "(interpolation of a higher order does not cap it)"),
 }
 """Published or expected spike-time error order of (stepper, crossing) with exact delivery.
 A step crossing or grid delivery quantises times to the grid: first order at best
@@ -160,7 +170,9 @@ def fitted_orders(table: pd.DataFrame, error_col: str = "target_shift_rms_ms",
         # error-per-step control sets h ~ tol^(1/(q+1)) from the embedded estimate of
         # order q; with local extrapolation the global error goes as h^p.
         expected = info.order / (info.error_order + 1) if info is not None else math.nan
+        source = TOLERANCE_PROPORTIONALITY_SOURCE
+        if st in VARIABLE_ORDER_SOURCES:
+            expected, source = VARIABLE_ORDER_SOURCES[st]
         out.append(dict(strategy=sg, stepper=st, crossing="dense", delivery="exact", **fit,
-                        excluded=n_below, expected=expected, source=TOLERANCE_PROPORTIONALITY_SOURCE,
-                        note=""))
+                        excluded=n_below, expected=expected, source=source, note=""))
     return out

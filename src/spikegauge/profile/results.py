@@ -14,10 +14,10 @@ run.
 ``results.csv`` columns (one row per point, in sweep order, seed by seed):
 ``point, seed, label, strategy, stepper, dt_ms, crossing, delivery, rtol,
 atol, digest, status, message, t_reached_ms``; cost ``steps, rhs_evals,
-newton_iters, arrivals, rejected_steps, spikes, cpu_s (CPU seconds of the run on one
+newton_iters, arrivals, rejected_steps, jacobian_evals, spikes, cpu_s (CPU seconds of the run on one
 thread, compilation excluded, the least of its repeats), cpu_spread ((largest - least) /
 least over the repeats), cpu_repeats, wall_s (the integration loop's wall time),
-compile_s, work (rhs_evals + newton_iters), steps_per_cell_ms, arrivals_per_ms``; target ``target_window_ms,
+compile_s, work (rhs_evals + newton_iters + jacobian_evals), steps_per_cell_ms, arrivals_per_ms``; target ``target_window_ms,
 target_shift_rms_ms, target_shift_max_abs_ms, target_mismatch_fraction,
 target_missed_fraction, target_extra_fraction``; open loop over the whole run
 (the point's twin replaying the reference's raster as recurrent input:
@@ -53,7 +53,8 @@ COMPARE_OPTIONS = dict(match_window_ms=2.0, tau_ms=5.0)
 """Options of every comparison of a profile (match window and van Rossum time constant, ms)."""
 TIME_COLUMNS = ("cpu_s", "cpu_spread", "cpu_repeats", "wall_s", "compile_s")
 """Columns that depend on the machine and the executor."""
-COST_KEYS = ("steps", "rhs_evals", "newton_iters", "arrivals", "rejected_steps", "spikes")
+COST_KEYS = ("steps", "rhs_evals", "newton_iters", "arrivals", "rejected_steps", "jacobian_evals",
+             "spikes")
 SETTING_COLUMNS = ("strategy", "stepper", "dt_ms", "crossing", "delivery", "rtol", "atol")
 TARGET_KEYS = ("shift_rms_ms", "shift_max_abs_ms", "mismatch_fraction", "missed_fraction",
                "extra_fraction")
@@ -124,8 +125,9 @@ def point_row(k, task, run, doc, window, spec, entry=None, open_run=None, open_d
     for c in COST_KEYS + TIME_COLUMNS:
         row[c] = math.nan if no_cost else run.cost.get(c, math.nan)
     # machine-independent work: a Newton iteration or Rosenbrock linear solve of a point
-    # neuron (2-6 states) costs about one right-hand side (common practice)
-    row["work"] = row["rhs_evals"] + row["newton_iters"]
+    # neuron (2-6 states), and a hand-written Jacobian of one, each cost about one right-hand
+    # side (common practice); runs stored before the Jacobian count have none
+    row["work"] = row["rhs_evals"] + row["newton_iters"] + run.cost.get("jacobian_evals", 0)
     span = run.t_stop_ms - run.t_start_ms
     row["steps_per_cell_ms"] = row["steps"] / (run.n_cells * span) if span > 0 and not no_cost else math.nan
     row["arrivals_per_ms"] = row["arrivals"] / span if span > 0 and not no_cost else math.nan

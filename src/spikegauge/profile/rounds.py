@@ -8,7 +8,7 @@ families side by side; after each round every new point is compared with the
 reference, and the next round is planned from what the earlier rounds found:
 
 * **Work limit.** Once some point meets the target, a run whose work (rhs
-  evaluations plus Newton iterations) passes ``factor`` times the least work
+  evaluations, Newton iterations and Jacobian evaluations) passes ``factor`` times the least work
   of the points of earlier rounds that meet it cannot win: it is stopped at
   that limit (status ``stopped``, its work a lower bound) and the finer
   settings of its family are not run (status ``skipped``). Work is compared

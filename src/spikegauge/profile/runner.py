@@ -322,8 +322,10 @@ def run_profile(scenario_path, out_dir, *, sweep_file=None, quick=False, seeds=1
 
 
 def _work(run) -> float:
-    """Right-hand-side evaluations plus Newton iterations of a run (NaN for a failed one)."""
-    return run.cost.get("rhs_evals", math.nan) + run.cost.get("newton_iters", 0)
+    """Right-hand-side evaluations, Newton iterations and Jacobian evaluations of a run (NaN for
+    a failed one)."""
+    return (run.cost.get("rhs_evals", math.nan) + run.cost.get("newton_iters", 0)
+            + run.cost.get("jacobian_evals", 0))
 
 
 def _timings(out: Path, this: dict, fresh: bool) -> dict:

@@ -4,9 +4,9 @@ A sweep is a list of settings dicts (``strategy``, ``stepper``, ``dt_ms``,
 ``crossing``, ``delivery``, ``rtol``, ``atol``), each resolved by
 :func:`spikegauge.simulation.resolve_settings`, run once per seed.
 
-Default sweep (:func:`default_sweep`), 60 points:
+Default sweep (:func:`default_sweep`), 75 points:
 
-* fixed step, six stepper/crossing/delivery combinations over five time steps
+* fixed step, seven stepper/crossing/delivery combinations over five time steps
   halving from a model-appropriate start (0.2 ms for integrate-and-fire
   models, 0.1 ms for AdEx, 0.04 ms for Hodgkin–Huxley; the smallest start of
   the scenario's models):
@@ -15,6 +15,9 @@ Default sweep (:func:`default_sweep`), 60 points:
   - ``expeuler`` + ``linear`` + ``exact`` and ``backward-euler`` + ``linear``
     + ``exact``: the first-order alternatives (stable for stiff cells);
   - ``rk2`` + ``linear`` + ``exact``: second order throughout;
+  - ``trapezoidal`` + ``hermite`` + ``exact``: second order and A-stable (the
+    implicit trapezoidal rule; Hermite interpolation uses the derivative it
+    has at both step ends);
   - ``rk4`` + ``hermite`` + ``exact``: fourth order throughout;
   - ``rk4`` + ``hermite`` + ``grid``: what grid delivery costs a high-order stepper.
 
@@ -25,8 +28,9 @@ Default sweep (:func:`default_sweep`), 60 points:
   and no longer than the smallest delay), so points whose time step exceeds
   the smallest delay are left out.
 * global and local adaptive, each with every error-controlled stepper
-  (``bs32``, ``dp54`` and the Rosenbrock scheme), over
-  rtol 1e-2 ... 1e-6 (decades), ``atol = rtol`` (in units of each state's scale).
+  (``bs32``, ``dp54``, the Rosenbrock scheme and the variable-order ``bdf``),
+  over rtol 1e-2 ... 1e-6 (decades), ``atol = rtol`` (in units of each state's
+  scale).
 
 ``--quick`` (:func:`quick_sweep`) runs 8 points for tests and smoke runs.
 
@@ -77,13 +81,15 @@ FIXED_COMBOS = (
     ("expeuler", "linear", "exact"),
     ("backward-euler", "linear", "exact"),
     ("rk2", "linear", "exact"),
+    ("trapezoidal", "hermite", "exact"),
     ("rk4", "hermite", "exact"),
     ("rk4", "hermite", "grid"),
 )
 """(stepper, crossing, delivery) of the default sweep's fixed-step points."""
 
 ADAPTIVE_STEPPERS = tuple(ADAPTIVE_STEPPER_CODES)
-"""Every stepper with an error estimate (explicit bs32, dp54 and a Rosenbrock scheme)."""
+"""Every stepper with an error estimate (explicit bs32, dp54, a Rosenbrock scheme, the
+variable-order bdf)."""
 RTOLS = (1e-2, 1e-3, 1e-4, 1e-5, 1e-6)
 
 

@@ -1,8 +1,8 @@
 """The verdict: is adaptive stepping worth it here, and which setting meets the target.
 
 Settings are ranked by what a user pays: the CPU seconds of a run on one
-thread (``cpu_s``, :mod:`.cost`). Work (right-hand-side evaluations plus
-Newton / linear-solve iterations) is shown beside it; where the two rank
+thread (``cpu_s``, :mod:`.cost`). Work (right-hand-side evaluations,
+Newton / linear-solve iterations and Jacobian evaluations) is shown beside it; where the two rank
 differently the reason says so, with the seconds per cell-step of each
 strategy (the per-step cost of error control, dense output, root finding and
 event handling that work leaves out).

@@ -58,7 +58,7 @@ def plot_front(table: pd.DataFrame, doc: dict, error: str = "jitter", cost: str 
     ax.set_xscale("log")
     ax.set_yscale("log")
     _draw_lower_bounds(ax, table[table["seed"] == seed0], cost)
-    ax.set_xlabel({"work": "work (rhs evaluations + Newton iterations)",
+    ax.set_xlabel({"work": "work (rhs evaluations + Newton iterations + Jacobians)",
                    "cpu": "CPU seconds on one thread"}[cost])
     ax.set_ylabel({"jitter": "RMS jitter in the evaluation window (ms)",
                    "mismatch": "(missed + extra) per reference spike",
@@ -129,7 +129,10 @@ def plot_convergence(table: pd.DataFrame, doc: dict) -> Figure:
             return ": too few points to fit"
         if f["note"]:
             return f": {f['note']}"
-        return f": slope {f['slope']:.2f} (expected {f['expected']:.3g})"
+        expected = f["expected"]   # None (NaN in profile.json) when no order is known
+        if expected is None or not np.isfinite(expected):
+            return f": slope {f['slope']:.2f} (no expected order known)"
+        return f": slope {f['slope']:.2f} (expected {expected:.3g})"
 
     fixed = rows[rows["strategy"] == "fixed"]
     for i, ((st, cr, de), r) in enumerate(fixed.groupby(["stepper", "crossing", "delivery"], sort=True)):

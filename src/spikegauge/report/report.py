@@ -187,7 +187,7 @@ def build_report(profile_dir) -> list[Path]:
                       fmt(r["target_mismatch_fraction"]), fmt(r["steps_per_cell_ms"])])
     rep.table(header, trows)
     rep.p("CPU: seconds of one thread for the whole run, compilation excluded, the least of up to "
-          "five repeats. Work: right-hand-side evaluations plus Newton iterations; it leaves out what "
+          "five repeats. Work: right-hand-side evaluations, Newton iterations and Jacobian evaluations; it leaves out what "
           "a step costs besides them (error control, dense output, crossing search, event handling), "
           "which is why the verdict ranks by CPU seconds.")
 
@@ -365,9 +365,11 @@ def _sweep_story(rows: pd.DataFrame, doc: dict) -> str:
 
 def _expected_order(f: dict) -> list:
     """Expected spike-time order of an open-loop fit and its source."""
-    from ..profile.front import FIXED_ORDER_SOURCES
+    from ..profile.front import FIXED_ORDER_SOURCES, VARIABLE_ORDER_SOURCES
 
     if f["strategy"] != "fixed":
+        if f["stepper"] in VARIABLE_ORDER_SOURCES:
+            return ["tolerance proportionality", VARIABLE_ORDER_SOURCES[f["stepper"]][1]]
         return ["tolerance proportionality", "Higham 1991"]
     if f["crossing"] == "step" or f["delivery"] == "grid":
         return ["1", "Hansel et al. 1998 (times quantised to the grid)"]
