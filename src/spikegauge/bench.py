@@ -48,6 +48,7 @@ BENCH_KEYS = (
     "single_hh_rk4_s", "single_hh_rk4_err_ms",
     "compare_1e6_s", "van_rossum_1e6_s", "elephant_van_rossum_1e6_s",
     "compile_s", "rss_growth_mb", "baseline_rss_mb", "advise_cpu_ratio",
+    "model_file_compile_s", "model_file_load_s",
 )
 """Keys of the ``--json`` object, in order (issue 9). ``details`` follows them."""
 
