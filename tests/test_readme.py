@@ -13,7 +13,7 @@ from spikegauge.cli import main  # noqa: F401  (registers every command)
 from spikegauge.cli.main import cli
 from spikegauge.profile import run_profile
 from spikegauge.profile.sweep import load_sweep_file
-from spikegauge.scenario import parse_scenario
+from spikegauge.scenario import load_scenario, parse_scenario
 
 ROOT = Path(__file__).resolve().parents[1]
 README = (ROOT / "README.md").read_text(encoding="utf-8")
@@ -79,3 +79,19 @@ def test_python_snippets_run(workdir):
     # the sweep file's 6 settings, and what the sweep added at its edges
     assert (namespace["results"]["origin"] == "sweep").sum() == 6 and "verdict" in namespace["profile"]
     assert namespace["profile"]["verdict"]["text"] in out.getvalue()
+
+
+def test_benchmark_network_table_matches_the_bundled_short_copies():
+    text = section("Published benchmark networks")
+    (commands,) = blocks(text, "")
+    named = set(re.findall(r"scenarios/(\S+\.toml)", commands))
+    assert named == {f"brette2007-lif-{m}{s}.toml" for m in ("conductance", "current") for s in ("", "-short")}
+    for name in named:
+        assert (ROOT / "scenarios" / name).is_file()
+    # The table's "profiled" column states each short copy's size and duration.
+    rows = re.findall(r"^\| `(brette2007-[a-z-]+)` .*$", text, flags=re.M)
+    assert sorted(rows) == ["brette2007-lif-conductance", "brette2007-lif-current"]
+    for row in rows:
+        sc = load_scenario(ROOT / "scenarios" / f"{row}-short.toml")
+        line = next(l for l in text.splitlines() if l.startswith(f"| `{row}`"))
+        assert f"{sc.n_cells} cells, {sc.duration_ms:g} ms (`-short`)" in line
