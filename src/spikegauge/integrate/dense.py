@@ -126,22 +126,7 @@ def _cubic_unit_roots(d, out):
     """
     brk = np.empty(4)
     nb = _quadratic_unit_roots(3.0 * d[3], 2.0 * d[2], d[1], brk[1:])
-    brk[0] = 0.0
-    brk[nb + 1] = 1.0
-    m = 0
-    for j in range(nb + 1):
-        ga = poly_value(d, 3, brk[j])
-        gb = poly_value(d, 3, brk[j + 1])
-        if ga < 0.0 <= gb and brk[j] < brk[j + 1]:
-            r = _root_in(d, 3, brk[j], brk[j + 1], True)
-        elif ga > 0.0 >= gb and brk[j] < brk[j + 1]:
-            r = _root_in(d, 3, brk[j], brk[j + 1], False)
-        else:
-            continue
-        if 0.0 < r < 1.0 and (m == 0 or r > out[m - 1]):
-            out[m] = r
-            m += 1
-    return m
+    return _roots_of_monotone_pieces(d, 3, brk, nb, out)
 
 
 @jit
@@ -159,16 +144,23 @@ def _quartic_unit_roots(d, out):
         nb = _cubic_unit_roots(dd, brk[1:])
     else:
         nb = _quadratic_unit_roots(dd[2], dd[1], dd[0], brk[1:])
+    return _roots_of_monotone_pieces(d, 4, brk, nb, out)
+
+
+@jit
+def _roots_of_monotone_pieces(d, deg, brk, nb, out):
+    """Sorted distinct roots in (0, 1) of the polynomial ``d`` of degree ``deg``, given the
+    ``nb`` breakpoints ``brk[1:nb + 1]`` (sorted, in (0, 1)) between which it is monotone."""
     brk[0] = 0.0
     brk[nb + 1] = 1.0
     m = 0
     for j in range(nb + 1):
-        ga = poly_value(d, 4, brk[j])
-        gb = poly_value(d, 4, brk[j + 1])
+        ga = poly_value(d, deg, brk[j])
+        gb = poly_value(d, deg, brk[j + 1])
         if ga < 0.0 <= gb and brk[j] < brk[j + 1]:
-            r = _root_in(d, 4, brk[j], brk[j + 1], True)
+            r = _root_in(d, deg, brk[j], brk[j + 1], True)
         elif ga > 0.0 >= gb and brk[j] < brk[j + 1]:
-            r = _root_in(d, 4, brk[j], brk[j + 1], False)
+            r = _root_in(d, deg, brk[j], brk[j + 1], False)
         else:
             continue
         if 0.0 < r < 1.0 and (m == 0 or r > out[m - 1]):
