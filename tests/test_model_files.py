@@ -305,6 +305,17 @@ def test_scenario_value_outside_declared_range_is_refused():
         one_group(MODELS_DIR / "qif.toml", parameters="c_m_pf = -5.0")
 
 
+def test_two_different_model_files_with_one_name_are_refused(tmp_path):
+    (tmp_path / "a.toml").write_text(GOOD)
+    (tmp_path / "b.toml").write_text(GOOD.replace("v_peak_mv = 20.0", "v_peak_mv = 25.0"))
+    text = ('[scenario]\nname = "x"\nduration_ms = 10.0\nseed = 1\n'
+            '[[group]]\nname = "a"\nsize = 1\nmodel = "a.toml"\n'
+            '[[group]]\nname = "b"\nsize = 1\nmodel = "b.toml"\n')
+    with pytest.raises(InputError, match=r"group\[1\]\.model: .*b\.toml and .*a\.toml are different model files "
+                                         r"with the same name 'qif-example'"):
+        parse_scenario(text, source=tmp_path / "net.toml")
+
+
 def test_cli_reports_a_bad_model_file_with_exit_2(tmp_path):
     (tmp_path / "bad.toml").write_text(BAD[0][1])
     (tmp_path / "net.toml").write_text(

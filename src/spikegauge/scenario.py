@@ -311,6 +311,7 @@ class _Parser:
     def __init__(self, label: str, base_dir: Path):
         self.label = label
         self.base_dir = base_dir
+        self.model_files: dict[str, tuple[str, str]] = {}  # model name -> (path, text) of the files used
 
     # -- small checks ---------------------------------------------------------
 
@@ -463,6 +464,10 @@ class _Parser:
             model_label = str(path)
             spec = model_from_text(model_text, model_label)
             model = spec.name
+            other = self.model_files.setdefault(model, (model_label, model_text))
+            if other[1] != model_text:
+                raise self.err(f"{w}.model", f"{model_label} and {other[0]} are different model files with the "
+                                             f"same name {model!r}; rename one ([model] name)")
         else:
             model = self.string(f"{w}.model", t["model"], BUILT_IN)
             spec = MODELS[model]

@@ -40,6 +40,8 @@ from __future__ import annotations
 import numpy as np
 import scipy.optimize
 
+import hashlib
+import threading
 from pathlib import Path
 
 from .._numba import jit
@@ -65,6 +67,7 @@ MODELS: dict[str, ModelSpec] = {spec.name: spec for spec in _BY_CODE}
 """Every model by its scenario name: the built-in ones and the model files loaded so far."""
 
 _BY_DIGEST: dict[str, ModelSpec] = {}
+_REGISTRY_LOCK = threading.Lock()
 
 
 def model_from_text(text: str, label: str) -> ModelSpec:
@@ -76,20 +79,22 @@ def model_from_text(text: str, label: str) -> ModelSpec:
     from .codegen import compile_model
     from .model_file import read_model_text
 
-    definition = read_model_text(text, label)
-    known = _BY_DIGEST.get(definition.digest)
-    if known is not None:
-        return known
-    if definition.name in BUILT_IN:
-        raise InputError(f"{label}: model.name: {definition.name!r} is a built-in model; choose another name")
-    slot = len(_BY_CODE) - FIRST_CODE
-    if slot >= MAX_MODEL_FILES:
-        raise InputError(f"{label}: this process has loaded {MAX_MODEL_FILES} model files, the most it can hold")
-    spec = compile_model(definition, slot)
-    _BY_CODE.append(spec)
-    _BY_DIGEST[definition.digest] = spec
-    MODELS[spec.name] = spec
-    return spec
+    digest = hashlib.sha256(text.encode()).hexdigest()
+    with _REGISTRY_LOCK:  # threads of one worker may load the same file at once
+        known = _BY_DIGEST.get(digest)
+        if known is not None:
+            return known
+        definition = read_model_text(text, label)
+        if definition.name in BUILT_IN:
+            raise InputError(f"{label}: model.name: {definition.name!r} is a built-in model; choose another name")
+        slot = len(_BY_CODE) - FIRST_CODE
+        if slot >= MAX_MODEL_FILES:
+            raise InputError(f"{label}: this process has loaded {MAX_MODEL_FILES} model files, the most it can hold")
+        spec = compile_model(definition, slot)
+        _BY_CODE.append(spec)
+        _BY_DIGEST[digest] = spec
+        MODELS[spec.name] = spec
+        return spec
 
 
 def load_model_file(path) -> ModelSpec:

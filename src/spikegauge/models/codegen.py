@@ -32,6 +32,7 @@ import numpy as np
 import sympy
 from sympy.printing.pycode import PythonCodePrinter
 
+from ..errors import InputError
 from .base import N_COMMON_PARAMS, P_IEXT, P_TREF, P_VRESET, P_VTH, ModelSpec, ParamInfo
 from .expressions import safe_ratio, safe_ratio_slope
 from .generated import FIRST_CODE, install
@@ -229,7 +230,12 @@ def compile_model(model: ModelDefinition, slot: int) -> ModelSpec:
 
     Returns the model's :class:`ModelSpec` with code ``FIRST_CODE + slot``.
     """
-    module = _load_module(model)
+    try:
+        module = _load_module(model)
+    except Exception as exc:  # noqa: BLE001 - whatever numba says, the user gets one line naming the file
+        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        raise InputError(f"{model.label}: the generated kernels do not compile ({type(exc).__name__}: "
+                         f"{first})") from None
     install(slot, (module.rhs.address, module.jac.address, module.split.address, module.reset.address,
                    module.rhs_cols.address))
 
