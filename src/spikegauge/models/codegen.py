@@ -38,7 +38,7 @@ from .expressions import safe_ratio, safe_ratio_slope
 from .generated import FIRST_CODE, install
 from .model_file import ModelDefinition
 
-GENERATOR_VERSION = "2"
+GENERATOR_VERSION = "5"
 """Part of the generated file's name: bump when the generated code changes form."""
 
 DERIVED_KEYS = ("spike.threshold", "spike.reset", "spike.refractory")
@@ -63,12 +63,24 @@ class _Printer(PythonCodePrinter):
     def _print_sign(self, e):
         return f"sign({self._print(e.args[0])})"
 
+    def _print_Pow(self, e, rational=False):
+        # small whole powers as products (m**3 h in Hodgkin-Huxley currents): no pow call,
+        # and a loop over cells that computes them stays vectorisable
+        base, expo = e.args
+        if expo.is_Integer and 2 <= int(expo) <= 8:
+            b = self._print(base) if base.is_Symbol else f"({self._print(base)})"
+            return "(" + "*".join([b] * int(expo)) + ")"
+        return super()._print_Pow(e, rational=rational)
+
 
 class _VectorPrinter(_Printer):
     """As :class:`_Printer`, with the exponential LLVM vectorises (:mod:`spikegauge.models.fastexp`)."""
 
     def _print_exp(self, e):
         return f"vector_exp({self._print(e.args[0])})"
+
+    def _print_safe_ratio(self, e):
+        return f"safe_ratio_vector({self._print(e.args[0])})"
 
 
 def _local(name: str) -> str:
@@ -83,11 +95,40 @@ def _ordered_params(model: ModelDefinition) -> list:
     return [model.current] + [p.name for p in model.parameters if p.name != model.current]
 
 
+def _hoisted(model: ModelDefinition) -> tuple[dict, list]:
+    """Derivatives with their costly parameter-only parts taken out, and those parts.
+
+    A subexpression of the parameters alone that calls a function or takes a
+    power (a temperature factor 3**((T - 6.3)/10), say) is the same at every
+    step: it becomes a hidden parameter ``hidden.k``, computed per cell when the
+    network is built. The current parameter is never part of one (drives change it).
+
+    Returns ({state: expression}, [(hidden name, expression)]).
+    """
+    fixed = {model.symbols[p.name] for p in model.parameters if p.name != model.current}
+    table: dict = {}
+
+    def costly(e):
+        return any(isinstance(x, (sympy.Function, sympy.Pow)) for x in sympy.preorder_traversal(e))
+
+    def visit(e):
+        if e.is_Atom:
+            return e
+        if e.free_symbols <= fixed and costly(e):
+            if e not in table:
+                table[e] = sympy.Symbol(f"hidden.{len(table)}", real=True)
+            return table[e]
+        return e.func(*[visit(a) for a in e.args])
+
+    derivatives = {s: visit(e) for s, e in model.derivatives.items()}
+    return derivatives, [(symbol.name, e) for e, symbol in table.items()]
+
+
 def _param_slot(model: ModelDefinition) -> dict:
-    """Parameter name -> slot in the cell's parameter vector."""
+    """Parameter name (and hidden parameter name) -> slot in the cell's parameter vector."""
     names = _ordered_params(model)
     slots = {names[0]: P_IEXT}
-    for k, name in enumerate(names[1:]):
+    for k, name in enumerate(names[1:] + [h for h, _ in _hoisted(model)[1]]):
         slots[name] = N_COMMON_PARAMS + k
     return slots
 
@@ -96,9 +137,11 @@ def generate_source(model: ModelDefinition) -> str:
     """Python source of the model's four kernels (see :mod:`spikegauge.models.generated`)."""
     states = _ordered_states(model)
     slots = _param_slot(model)
-    sym = model.symbols
-    rename = {sym[n]: sympy.Symbol(_local(n), real=True) for n in sym}
-    f = [model.derivatives[s].xreplace(rename) for s in states]
+    derivatives, hidden = _hoisted(model)
+    sym = dict(model.symbols, **{h: sympy.Symbol(h, real=True) for h, _ in hidden})
+    rename = {sym[n]: sympy.Symbol("h_" + n.split(".")[1] if n.startswith("hidden.") else _local(n), real=True)
+              for n in sym}
+    f = [derivatives[s].xreplace(rename) for s in states]
     y = [rename[sym[s]] for s in states]
     n = len(states)
     jac = [[sympy.diff(f[i], y[j]) for j in range(n)] for i in range(n)]
@@ -116,7 +159,7 @@ def generate_source(model: ModelDefinition) -> str:
                 lines.append(f"    {_local(s)} = y[{k} * ys]")
         for name, slot in slots.items():
             if rename[sym[name]] in used:
-                lines.append(f"    {_local(name)} = p[{slot} * ps]")
+                lines.append(f"    {rename[sym[name]]} = p[{slot} * ps]")
         return lines
 
     def body(exprs, targets):
@@ -132,7 +175,8 @@ def generate_source(model: ModelDefinition) -> str:
         "from numba import cfunc",
         "from spikegauge.models.fastexp import exp as vector_exp",
         "from spikegauge.models.generated import (SIG_JAC, SIG_RESET, SIG_RHS, SIG_RHS_COLS, SIG_SPLIT,",
-        "                                         safe_ratio, safe_ratio_slope, sign, step)",
+        "                                         safe_ratio, safe_ratio_slope, safe_ratio_vector, sign,",
+        "                                         step)",
         "",
         "",
         "@cfunc(SIG_RHS, cache=True, error_model='numpy')",
@@ -162,7 +206,7 @@ def generate_source(model: ModelDefinition) -> str:
     temps, reduced = sympy.cse(f, symbols=sympy.numbered_symbols("t_"))
     used = set().union(*[e.free_symbols for e in [x for _, x in temps] + list(reduced)])
     out += [f"        {_local(s)} = Y[{k} * ys0 + j]" for k, s in enumerate(states) if rename[sym[s]] in used]
-    out += [f"        {_local(name)} = P[{slot} * ps0 + i]" for name, slot in slots.items()
+    out += [f"        {rename[sym[name]]} = P[{slot} * ps0 + i]" for name, slot in slots.items()
             if rename[sym[name]] in used]
     out += [f"        {t} = {vector_printer.doprint(e)}" for t, e in temps]
     out += [f"        f{k} = {vector_printer.doprint(e)}" for k, e in enumerate(reduced)]
@@ -251,6 +295,10 @@ def compile_model(model: ModelDefinition, slot: int) -> ModelSpec:
         (DERIVED_KEYS[1], P_VRESET, "0 when the model resets at a spike, NaN when it does not"),
         (DERIVED_KEYS[2], P_TREF, "refractory hold (ms, from [spike] refractory)"))]
     params += [ParamInfo(name, slots[name], pinfo[name].default, "") for name in pnames[1:]]
+    hidden = _hoisted(model)[1]
+    params += [ParamInfo(h, slots[h], math.nan, "a parameter-only part of the derivatives, computed per cell")
+               for h, _ in hidden]
+    hidden_values = [(slots[h], _per_cell(e, pnames)) for h, e in hidden]
 
     threshold = _per_cell(model.threshold, pnames)
     refractory = _per_cell(model.refractory, pnames) if model.refractory is not None else None
@@ -262,6 +310,8 @@ def compile_model(model: ModelDefinition, slot: int) -> ModelSpec:
         rows[:, P_VTH] = threshold(*cols)
         rows[:, P_VRESET] = 0.0 if has_reset else math.nan
         rows[:, P_TREF] = refractory(*cols) if refractory is not None else 0.0
+        for k, fn in hidden_values:
+            rows[:, k] = fn(*cols)
 
     spike_init = _per_cell(by_name[model.spike_state].initial, pnames)
     other_init = {s: _per_cell(by_name[s].initial, pnames + [model.spike_state]) for s in states[1:]}
@@ -293,7 +343,7 @@ def compile_model(model: ModelDefinition, slot: int) -> ModelSpec:
         doc=model.description or f"model file {model.label}",
         source=model.source or f"model file {model.label}",
         extra={
-            "fixed_params": DERIVED_KEYS,
+            "fixed_params": DERIVED_KEYS + tuple(h for h, _ in hidden),
             "derive": derive,
             "initial": initial,
             "definition": model,
