@@ -38,7 +38,7 @@ from .expressions import safe_ratio, safe_ratio_slope
 from .generated import FIRST_CODE, install
 from .model_file import ModelDefinition
 
-GENERATOR_VERSION = "5"
+GENERATOR_VERSION = "6"
 """Part of the generated file's name: bump when the generated code changes form."""
 
 DERIVED_KEYS = ("spike.threshold", "spike.reset", "spike.refractory")
@@ -200,18 +200,19 @@ def generate_source(model: ModelDefinition) -> str:
     out.append("    b[0] = 0.0 if clamped else b0")
     out += [f"    a[{i} * as_] = a{i}\n    b[{i} * bs] = b{i}" for i in range(1, n)]
     out += ["", "", "@cfunc(SIG_RHS_COLS, cache=True, error_model='numpy')",
-            "def rhs_cols(Y, ys0, ys1, P, ps0, ps1, lo, hi, clamped, cs, F, fs0, fs1):",
-            "    for j in range(hi - lo):",
-            "        i = lo + j"]
-    temps, reduced = sympy.cse(f, symbols=sympy.numbered_symbols("t_"))
-    used = set().union(*[e.free_symbols for e in [x for _, x in temps] + list(reduced)])
-    out += [f"        {_local(s)} = Y[{k} * ys0 + j]" for k, s in enumerate(states) if rename[sym[s]] in used]
-    out += [f"        {rename[sym[name]]} = P[{slot} * ps0 + i]" for name, slot in slots.items()
-            if rename[sym[name]] in used]
-    out += [f"        {t} = {vector_printer.doprint(e)}" for t, e in temps]
-    out += [f"        f{k} = {vector_printer.doprint(e)}" for k, e in enumerate(reduced)]
-    out.append("        F[j] = 0.0 if clamped[j] else f0")
-    out += [f"        F[{k} * fs0 + j] = f{k}" for k in range(1, n)]
+            "def rhs_cols(Y, ys0, ys1, P, ps0, ps1, lo, hi, clamped, cs, F, fs0, fs1):"]
+    # one loop per state: few inputs and one output each, which LLVM vectorises (one loop
+    # for all states holds too many values at once)
+    for k, e in enumerate(f):
+        temps, (reduced,) = sympy.cse([e], symbols=sympy.numbered_symbols("t_"))
+        used = set().union(e.free_symbols, *[x.free_symbols for _, x in temps])
+        out += ["    for j in range(hi - lo):", "        i = lo + j"]
+        out += [f"        {_local(s)} = Y[{q} * ys0 + j]" for q, s in enumerate(states) if rename[sym[s]] in used]
+        out += [f"        {rename[sym[name]]} = P[{slot} * ps0 + i]" for name, slot in slots.items()
+                if rename[sym[name]] in used]
+        out += [f"        {t} = {vector_printer.doprint(x)}" for t, x in temps]
+        value = vector_printer.doprint(reduced)
+        out.append(f"        F[j] = 0.0 if clamped[j] else {value}" if k == 0 else f"        F[{k} * fs0 + j] = {value}")
     out += ["", "", "@cfunc(SIG_RESET, cache=True, error_model='numpy')", "def reset(y, ys, p, ps):"]
     if reset:
         keys = sorted(reset)
