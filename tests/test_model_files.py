@@ -452,3 +452,12 @@ rtol = 1e-4
     table = pd.read_csv(tmp_path / "p" / "results.csv")
     swept = table[table["origin"] == "sweep"]
     assert (swept["status"] == "ok").all() and swept["spikes"].min() > 0
+
+
+def test_an_input_on_the_spike_state_warns_that_jumps_past_threshold_do_not_fire(tmp_path):
+    fresh = 20.0 + int.from_bytes(os.urandom(4), "little") / 2**32  # a text this process has not loaded
+    text = (MODELS_DIR / "lif-jump.toml").read_text().replace('name = "lif-jump"', 'name = "lif-jump-warning"')
+    path = tmp_path / "jump.toml"
+    path.write_text(text.replace("{ default = 20.0, lower = 0.0 }", f"{{ default = {fresh!r}, lower = 0.0 }}"))
+    with pytest.warns(UserWarning, match="carries it past the threshold does not fire the cell"):
+        load_model_file(path)
