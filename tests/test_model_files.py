@@ -159,6 +159,79 @@ def test_traub_hh_cell_matches_dop853():
     np.testing.assert_allclose(got, ref, rtol=0, atol=1e-6)
 
 
+LIF_JUMP = dict(tau_m_ms=20.0, e_l_mv=-49.0, v_th_mv=-50.0, v_reset_mv=-60.0, t_ref_ms=5.0)  # the file's defaults
+
+
+@pytest.mark.parametrize("settings", [
+    dict(strategy="local-adaptive", stepper="dp54", rtol=1e-11),
+    dict(strategy="fixed", stepper="rk4", dt_ms=0.01, crossing="hermite", delivery="exact"),
+], ids=["local-adaptive", "fixed"])
+def test_lif_jump_cell_without_input_fires_at_the_closed_form_interval(settings):
+    """lif-jump alone: V(t) = V_inf + (V0 - V_inf) exp(-t / tau_m) (closed form), so from V0 = V_reset
+    the first spike comes at tau_m ln((V_inf - V_reset)/(V_inf - V_th)) and then every
+    t_ref + that time."""
+    p = LIF_JUMP
+    run = simulate(one_group(MODELS_DIR / "lif-jump.toml", initial=f"v_mv = {p['v_reset_mv']}"), **settings)
+    travel = p["tau_m_ms"] * math.log((p["e_l_mv"] - p["v_reset_mv"]) / (p["e_l_mv"] - p["v_th_mv"]))
+    got = spike_times(run)
+    assert got.size == 5   # 300 ms: 47.96 ms to the first spike, then every 52.96 ms
+    np.testing.assert_allclose(got, travel + np.arange(5) * (p["t_ref_ms"] + travel), rtol=0, atol=1e-6)
+
+
+def lif_jump_event_driven(arrivals, t_stop, tau_m, e_l, v_th, v_reset, t_ref, v0):
+    """Spike times of one lif-jump cell by its closed form between arrivals (event-driven).
+
+    ``arrivals`` is a time-sorted list of (time_ms, jump_mv). Between arrivals
+    V relaxes exponentially towards ``e_l``; the threshold crossing of the
+    relaxation is solved in closed form. Asserts the conditions under which the
+    solution is unambiguous: no arrival falls inside a refractory period and no
+    jump itself carries V over the threshold.
+    """
+    t, v, spikes = 0.0, v0, []
+    for ta, w in list(arrivals) + [(t_stop, 0.0)]:
+        while e_l > v_th:
+            tc = t + tau_m * math.log((e_l - v) / (e_l - v_th))
+            if tc >= ta:
+                break
+            spikes.append(tc)
+            t, v = tc + t_ref, v_reset
+            assert t < ta, "an arrival inside a refractory period"
+        v = e_l + (v - e_l) * math.exp(-(ta - t) / tau_m) + w
+        t = ta
+        assert v < v_th, "a jump over the threshold"
+    return np.asarray(spikes)
+
+
+def test_lif_jump_cell_under_a_periodic_input_train_matches_the_event_driven_solution(tmp_path):
+    """lif-jump under periodic excitatory and inhibitory arrivals against the event-driven solution above."""
+    p = LIF_JUMP
+    # +0.25 mV every 8 ms and -2.25 mV every 24 ms (the benchmark's jumps), phases chosen so that
+    # no arrival meets a refractory period and no jump crosses the threshold (asserted below)
+    exc = np.arange(1.5, 300.0, 8.0)
+    inh = np.arange(1.0, 300.0, 24.0)
+    for name, times in (("exc.csv", exc), ("inh.csv", inh)):
+        (tmp_path / name).write_text("cell,time_ms\n" + "".join(f"0,{float(t)!r}\n" for t in times))
+    extra = "".join(f"""
+[[drive]]
+target = "cells"
+kind = "spikes"
+receptor = "{receptor}"
+weight_mv = {w}
+file = "{tmp_path / name}"
+""" for receptor, w, name in (("excitatory", 0.25, "exc.csv"), ("inhibitory", 2.25, "inh.csv")))
+    sc = one_group(MODELS_DIR / "lif-jump.toml", initial="v_mv = -60.0", extra=extra)
+    arrivals = sorted([(t, 0.25) for t in exc] + [(t, -2.25) for t in inh])
+    ref = lif_jump_event_driven(arrivals, 300.0, p["tau_m_ms"], p["e_l_mv"], p["v_th_mv"], p["v_reset_mv"],
+                                p["t_ref_ms"], -60.0)
+    assert ref.size >= 3
+    for settings in (dict(strategy="local-adaptive", stepper="dp54", rtol=1e-11),
+                     dict(strategy="global-adaptive", stepper="dp54", rtol=1e-11),
+                     dict(strategy="fixed", stepper="rk4", dt_ms=0.01, crossing="hermite", delivery="exact")):
+        got = spike_times(simulate(sc, **settings))
+        assert got.size == ref.size, settings
+        np.testing.assert_allclose(got, ref, rtol=0, atol=1e-6, err_msg=str(settings))
+
+
 @pytest.mark.parametrize("name, state", [
     ("traub-hh.toml", [-55.0, 0.1, 0.6, 0.3, 0.02, 0.1]),
     ("izhikevich.toml", [-60.0, -12.0, 3.0, 1.0]),
