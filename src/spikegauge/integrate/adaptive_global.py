@@ -42,7 +42,7 @@ from .adaptive_steppers import (DENSE_DEGREE, F1_ROW, JACOBIANS_PER_TRIAL, ROW_D
 from .dense import upward_crossings
 from .engine import (C_ARRIVALS, C_JACOBIAN, C_NEWTON, C_REJECTED, C_RHS, C_STEPS, DIV_BOUNDS,
                      DIV_MAX_STEPS, DIV_MIN_STEP, DIV_NEWTON)
-from .fixed import _apply, _in_bounds
+from .fixed import _apply, _in_bounds, fires_on_arrival
 from .step_control import (error_norm, initial_step, next_step_accepted, next_step_rejected,
                            step_to_end)
 from .tableaux import BDF
@@ -50,13 +50,25 @@ from .tableaux import BDF
 
 @jit
 def _arrivals_phase(t, code, Y, P, aidx, arr_ptr, arr_time, arr_recep, arr_weight, rstate,
-                    counters, have_f):
+                    counters, have_f, refr, has_reset, spk_count, spk_time):
+    """Arrivals due at ``t``; a cell whose spike state they carry past the threshold fires at ``t``."""
+    cap = spk_time.shape[1]
     for i in range(code.size):
+        v_before = Y[i, 0]
+        held = t < refr[i]
         while aidx[i] < arr_ptr[i + 1] and arr_time[aidx[i]] <= t:
-            _apply(code[i], Y[i], P[i], arr_recep[aidx[i]], arr_weight[aidx[i]], rstate)
+            _apply(code[i], Y[i], P[i], arr_recep[aidx[i]], arr_weight[aidx[i]], rstate, held)
             counters[i, C_ARRIVALS] += 1
             aidx[i] += 1
             have_f[i] = False
+        if fires_on_arrival(v_before, Y[i], P[i], held):
+            if spk_count[i] < cap:
+                spk_time[i, spk_count[i]] = t
+            spk_count[i] += 1
+            if has_reset[i]:
+                reset(code[i], Y[i], P[i])
+                if P[i, P_TREF] > 0.0:
+                    refr[i] = t + P[i, P_TREF]
 
 
 @jit
@@ -309,7 +321,7 @@ def global_window(method, code, Y, P, refr, div_time, div_code, g_state, lower, 
     while True:
         # arrivals due now (ordered per cell by the window)
         _arrivals_phase(t, code, Y, P, aidx, arr_ptr, arr_time, arr_recep, arr_weight, rstate,
-                        counters, have_f)
+                        counters, have_f, refr, has_reset, spk_count, spk_time)
         if t >= t1:
             break
         t_end = t1
@@ -415,7 +427,7 @@ def _global_window_bdf(code, Y, P, refr, div_time, div_code, g_state, lower, upp
     t = t0
     while True:
         _arrivals_phase(t, code, Y, P, aidx, arr_ptr, arr_time, arr_recep, arr_weight, rstate,
-                        counters, have_f)
+                        counters, have_f, refr, has_reset, spk_count, spk_time)
         if t >= t1:
             break
         t_end = t1

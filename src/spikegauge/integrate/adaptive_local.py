@@ -35,7 +35,7 @@ from .bdf import (B_JAC, B_ORDER, bdf_dense_coefficients, bdf_dense_state, bdf_n
 from .dense import upward_crossings
 from .engine import (C_ARRIVALS, C_JACOBIAN, C_NEWTON, C_REJECTED, C_RHS, C_STEPS, DIV_BOUNDS,
                      DIV_MAX_STEPS, DIV_MIN_STEP, DIV_NEWTON)
-from .fixed import _apply, _in_bounds
+from .fixed import _apply, _in_bounds, fires_on_arrival
 from .step_control import (error_norm, initial_step, next_step_accepted, next_step_rejected,
                            step_to_end)
 from .tableaux import BDF
@@ -101,13 +101,22 @@ def _local_cell(method, code, y, p, refr0, h_start, err_prev0, n, t0, t1, rtol, 
     c = np.empty(6)
     cross = np.empty(4)
     while True:
+        v_before = y[0]
         while a < a_hi and at[a] <= t:
-            _apply(code, y, p, ar[a], aw[a], rstate)
+            _apply(code, y, p, ar[a], aw[a], rstate, t < refr)
             cnt[C_ARRIVALS] += 1
             a += 1
             have_f = False
             if bdf:
                 BF[B_ORDER] = 0.0   # restart the history
+        if fires_on_arrival(v_before, y, p, t < refr):  # a jump of the spike state past threshold
+            if nsp < cap:
+                spk[nsp] = t
+            nsp += 1
+            if has_reset:
+                reset(code, y, p)
+                if tref > 0.0:
+                    refr = t + tref
         if t >= t1:
             break
         clamped = t < refr

@@ -81,11 +81,52 @@ def _snap(t, dt):
 
 
 @jit
-def _apply(code_row, y, p, recep, w, rstate):
+def _apply(code_row, y, p, recep, w, rstate, held):
+    """Apply one arrival: a current step to ``p[P_IEXT]``, a synaptic weight to its state.
+
+    ``held``: the cell is refractory; an arrival to the held spike state (state 0, a
+    model file whose input moves it) is dropped, since the hold fixes that state.
+    """
     if recep == RECEPTOR_CURRENT:
         p[P_IEXT] += w
     else:
-        y[rstate[code_row, recep]] += w
+        s = rstate[code_row, recep]
+        if s != 0 or not held:
+            y[s] += w
+
+
+@jit
+def fires_on_arrival(v_before, y, p, held):
+    """Whether arrivals carried the spike state from below the threshold to it or above.
+
+    Only an input that moves the spike state itself (a model file's voltage jump)
+    can do that; the cell then fires at the arrival time.
+    """
+    return (not held) and v_before < p[P_VTH] <= y[0]
+
+
+def inputs_move_spike_state(network) -> bool:
+    """Whether some cell's inputs move its spike state itself (a model file's voltage jump).
+
+    Such networks take the cell-by-cell path with grid delivery too: the block
+    loop sums arrivals into the synaptic states without the threshold test that
+    a jump of the spike state needs (:func:`fires_on_arrival`).
+    """
+    codes = np.unique(np.asarray(network.cell_model, dtype=np.int64))
+    return bool((receptor_state_table()[codes] == 0).any())
+
+
+@jit
+def _fire_at_arrival(code, y, p, t, refr, has_reset, tref, dt, spk, row, nsp, cap):
+    """A spike at arrival time ``t`` (see :func:`fires_on_arrival`): stored, then the reset
+    and the hold as after a crossing. Returns the new end of the hold."""
+    if nsp < cap:
+        spk[row, nsp] = t
+    if has_reset:
+        reset(code, y, p)
+        if tref > 0.0:
+            return _snap(t + tref, dt)
+    return refr
 
 
 @jit
@@ -123,20 +164,28 @@ def _fixed_cell(code, y, p, refr0, n, st0, st1, dt, t_hi, stepper, crossing, gri
         ta = st * dt
         tb = min((st + 1) * dt, t_hi)  # the last step of a run may end early, at its stop time
         if grid:
+            v_before = y[0]
             while a < a_hi and at[a] < ta + 0.5 * dt:  # effective times sit on grid points
-                _apply(code, y, p, ar[a], aw[a], rstate)
+                _apply(code, y, p, ar[a], aw[a], rstate, ta < refr)
                 cnt[C_ARRIVALS] += 1
                 a += 1
                 have_f = False
+            if fires_on_arrival(v_before, y, p, ta < refr):
+                refr = _fire_at_arrival(code, y, p, ta, refr, has_reset, tref, dt, spk, row, nsp, cap)
+                nsp += 1
         t = ta
         resets = 0
         while t < tb:
             if not grid:
+                v_before = y[0]
                 while a < a_hi and at[a] <= t:
-                    _apply(code, y, p, ar[a], aw[a], rstate)
+                    _apply(code, y, p, ar[a], aw[a], rstate, t < refr)
                     cnt[C_ARRIVALS] += 1
                     a += 1
                     have_f = False
+                if fires_on_arrival(v_before, y, p, t < refr):
+                    refr = _fire_at_arrival(code, y, p, t, refr, has_reset, tref, dt, spk, row, nsp, cap)
+                    nsp += 1
             t_end = tb
             if not grid and a < a_hi and at[a] < t_end:
                 t_end = at[a]
@@ -344,7 +393,7 @@ class FixedStepKernel:
         """Integrate the whole run: grid delivery in the block loop of
         :mod:`spikegauge.integrate.fixed_block`, exact delivery window by window;
         ``replay`` (a :class:`~spikegauge.integrate.replay.ReplayRaster`) makes it open loop."""
-        if self.grid:
+        if self.grid and not inputs_move_spike_state(network):
             from .fixed_block import run_grid
             return run_grid(self, network, t_stop_ms, state, progress, on_window, extra_edges,
                             work_limit=work_limit, replay=replay)
@@ -355,7 +404,7 @@ class FixedStepKernel:
 
     def warm_up(self, network, state):
         """Compile (or load) the kernels of this setting without advancing ``state``."""
-        if not self.grid:
+        if not self.grid or inputs_move_spike_state(network):
             return False
         from .fixed_block import GridRun, _no_drive
         GridRun(network, state, self.dt, self.stepper, self.crossing, self.dt).advance(0, 0, _no_drive())

@@ -42,7 +42,6 @@ import scipy.optimize
 
 import hashlib
 import threading
-import warnings
 from pathlib import Path
 
 from .._numba import jit
@@ -92,10 +91,6 @@ def model_from_text(text: str, label: str) -> ModelSpec:
         if slot >= MAX_MODEL_FILES:
             raise InputError(f"{label}: this process has loaded {MAX_MODEL_FILES} model files, the most it can hold")
         spec = compile_model(definition, slot)
-        if definition.spike_state in (definition.excitatory, definition.inhibitory):
-            warnings.warn(f"{label}: inputs: arrivals change the spike state {definition.spike_state!r} itself; "
-                          "an arrival that carries it past the threshold does not fire the cell (not supported "
-                          "yet), so keep such jumps below the threshold", stacklevel=2)
         _BY_CODE.append(spec)
         _BY_DIGEST[digest] = spec
         MODELS[spec.name] = spec
