@@ -19,6 +19,7 @@ from spikegauge.scenario import load_scenario, parse_scenario
 
 SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
 NETWORKS = {"brette2007-hh": (("exc", 3200), ("inh", 800)),
+            "brette2007-lif-jump": (("exc", 3200), ("inh", 800)),
             "izhikevich-network": (("rs", 800), ("fs", 200))}
 FILES = [f"{name}{suffix}.toml" for name in NETWORKS for suffix in ("", "-short")]
 
@@ -59,7 +60,13 @@ def test_bundled_scenario_loads_with_its_sizes_and_stated_rules(name):
     for p in sc.pathways:
         assert p.connect == "random" and not p.self_connections
         assert p.receptor == ("excitatory" if p.source == exc else "inhibitory")
-        if base == "brette2007-hh":
+        if base == "brette2007-lif-jump":
+            # Brette et al. 2007, benchmark 4: jumps of +0.25 and -2.25 mV (the model file's inhibitory
+            # input lowers V by its weight); our choices: p = 0.02, every delay 1.0 ms.
+            assert p.p_connect == 0.02
+            assert p.delay_ms.sample(rng, 3).tolist() == [1.0, 1.0, 1.0]
+            assert p.weight.value == (0.25 if p.source == exc else 2.25)
+        elif base == "brette2007-hh":
             # Our stated choices for the benchmark: p = 0.02, every delay 1.0 ms.
             assert p.p_connect == 0.02
             assert p.delay_ms.sample(rng, 3).tolist() == [1.0, 1.0, 1.0]
@@ -71,6 +78,18 @@ def test_bundled_scenario_loads_with_its_sizes_and_stated_rules(name):
             assert p.p_connect == 0.1
             assert p.delay_ms == Uniform(1.0, 3.0)
     assert sc.duration_ms < 1000.0 if name.endswith("-short.toml") else sc.duration_ms == 1000.0
+
+
+def test_voltage_jump_benchmark_uses_the_published_cell():
+    """Brette et al. 2007, benchmark 4 cell: tau_m 20 ms, rest -49, threshold -50, reset -60 mV, 5 ms."""
+    sc = load_scenario(SCENARIOS / "brette2007-lif-jump.toml")
+    for g in sc.groups:
+        assert g.spec.name == "lif-jump" and g.spec.weight_key == "weight_mv"
+        values = {k: v.value for k, v in g.parameters.items()}
+        assert values == {"tau_m_ms": 20.0, "e_l_mv": -49.0, "v_th_mv": -50.0, "v_reset_mv": -60.0,
+                          "t_ref_ms": 5.0}
+        assert g.initial["v_mv"] == Uniform(-60.0, -50.0)
+    assert not sc.drives  # rest above threshold: the cells fire by themselves
 
 
 def test_hh_benchmark_uses_the_published_cell_and_initial_state():
@@ -115,6 +134,7 @@ def test_short_copy_differs_from_the_full_network_only_in_name_and_duration(name
                                       delivery="grid")),
     ("izhikevich-network", (160, 40), dict(strategy="fixed", stepper="rk4", dt_ms=0.05, crossing="hermite",
                                            delivery="grid")),
+    ("brette2007-lif-jump", (160, 40), dict(strategy="local-adaptive", stepper="dp54", rtol=1e-6)),
 ])
 def test_small_copy_by_the_same_rules_runs_and_spikes(name, sizes, settings):
     # 200 cells in the file's 4:1 ratio over 100 ms.
