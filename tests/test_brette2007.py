@@ -56,7 +56,15 @@ def test_bundled_scenario_loads_with_the_published_sizes_and_our_stated_rules(na
     assert sc.duration_ms < 1000.0 if name.endswith("-short.toml") else sc.duration_ms == 1000.0
 
 
-@pytest.mark.parametrize("name", NETWORKS)
+SHORT_COPIES = sorted(p.name.removesuffix("-short.toml") for p in SCENARIOS.glob("*-short.toml"))
+
+
+def test_every_profiled_network_has_a_short_copy():
+    assert {"brette2007-lif-conductance", "brette2007-lif-current", "brette2007-hh", "brette2007-lif-jump",
+            "izhikevich-network"} <= set(SHORT_COPIES)
+
+
+@pytest.mark.parametrize("name", SHORT_COPIES)
 def test_short_copy_differs_from_the_full_network_only_in_name_and_duration(name):
     full = tomllib.loads(_text(name))
     short = tomllib.loads(_text(f"{name}-short"))
