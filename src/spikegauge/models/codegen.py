@@ -34,7 +34,6 @@ from sympy.printing.pycode import PythonCodePrinter
 
 from ..errors import InputError
 from .base import N_COMMON_PARAMS, P_IEXT, P_TREF, P_VRESET, P_VTH, ModelSpec, ParamInfo
-from .expressions import safe_ratio, safe_ratio_slope
 from .generated import FIRST_CODE, install
 from .model_file import ModelDefinition
 
@@ -134,7 +133,7 @@ def _param_slot(model: ModelDefinition) -> dict:
 
 
 def generate_source(model: ModelDefinition) -> str:
-    """Python source of the model's four kernels (see :mod:`spikegauge.models.generated`)."""
+    """Python source of the model's five kernels (see :mod:`spikegauge.models.generated`)."""
     states = _ordered_states(model)
     slots = _param_slot(model)
     derivatives, hidden = _hoisted(model)
