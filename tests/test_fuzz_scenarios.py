@@ -27,7 +27,7 @@ from hypothesis import HealthCheck, given, seed, settings
 
 from _fuzzutil import CaseTimeout, names_file_and_place, time_limit, to_toml
 from spikegauge.errors import InputError
-from spikegauge.models import MODELS
+from spikegauge.models import BUILT_IN, MODELS
 from spikegauge.network import build_network
 from spikegauge.network.drive import DriveStream
 from spikegauge.scenario import CONNECTS, load_scenario
@@ -57,8 +57,9 @@ WRONG_TYPES = ["", "abc", "20 ms", True, False, [], [1, 2], {}, {"distribution":
                {"distribution": "uniform", "low": 5.0, "high": 1.0},
                {"distribution": "cauchy", "mean": 1.0}, "2000-01-01"]
 # Keys of one unit system or model used where another belongs.
-FOREIGN_KEYS = sorted({k for s in MODELS.values() for k in (s.weight_key, s.current_key, *s.param_keys())}
-                      | {n for s in MODELS.values() for n in s.state_names}
+_SPECS = [MODELS[name] for name in BUILT_IN]  # not the model files other tests load meanwhile
+FOREIGN_KEYS = sorted({k for s in _SPECS for k in (s.weight_key, s.current_key, *s.param_keys())}
+                      | {n for s in _SPECS for n in s.state_names}
                       | {"weight_na", "i_na", "weight", "current", "delay_s", "duration_s", "dt_s"})
 TEXT_DAMAGE = ["[", "]", "[[", "=", '"', "'", "{", "}", ",", "\n", "\\", "#", "[[group]]\n",
                "[scenario]\n", "x = 1\nx = 2\n", "\ufeff", "\x00", "= =", "a.b.c = 1\n"]
@@ -153,7 +154,7 @@ def mutated_scenarios(draw):
             if not groups:
                 continue
             i = draw(st.sampled_from(groups))
-            doc["group"][i]["model"] = draw(st.sampled_from([*MODELS, "lif", "HH-squid", "izhikevich"]))
+            doc["group"][i]["model"] = draw(st.sampled_from([*BUILT_IN, "lif", "HH-squid", "izhikevich"]))
         elif op == "shape":
             # A section of the wrong shape: a table where an array of tables
             # belongs or the reverse, an empty array, a scalar.
@@ -216,8 +217,9 @@ def _parsed(content):
 def fuzz_dir(tmp_path_factory):
     d = tmp_path_factory.mktemp("fuzz-scenarios")
     # Scenarios name files relative to themselves; the fuzzed copies sit next to
-    # a copy of the bundled data so those references still resolve.
+    # a copy of the bundled data and model files so those references still resolve.
     shutil.copytree(ROOT / "scenarios" / "data", d / "data")
+    shutil.copytree(ROOT / "scenarios" / "models", d / "models")  # the model files scenarios name
     return d
 
 
