@@ -555,3 +555,16 @@ def test_an_arrival_that_jumps_the_voltage_past_threshold_fires_the_cell(tmp_pat
     # (measured 6e-6); linear interpolation on a 0.05 ms grid within 0.05 ms
     tol = 0.05 if settings.get("delivery") == "grid" else (1e-4 if settings["stepper"] == "bdf" else 1e-6)
     np.testing.assert_allclose(got[1], expected[1], rtol=0, atol=tol)
+
+
+def test_a_network_whose_model_codes_this_process_does_not_know_is_refused():
+    """Codes of model files are per process: a foreign network is one line, not a call through an empty slot."""
+    import dataclasses
+
+    from spikegauge.network import build_network
+
+    net = build_network(one_group(MODELS_DIR / "qif.toml", duration_ms=10.0))
+    foreign = dataclasses.replace(net, cell_model=np.full_like(net.cell_model, 200))
+    with pytest.raises(InputError, match="is not the model this process knows by that code"):
+        simulate(foreign, strategy="fixed", stepper="rk2", dt_ms=0.1, crossing="linear", delivery="grid")
+    assert simulate(net, strategy="fixed", stepper="rk2", dt_ms=0.1, crossing="linear", delivery="grid").status == "ok"

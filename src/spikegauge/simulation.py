@@ -44,8 +44,33 @@ def _as_scenario(scenario):
     if isinstance(scenario, (str, Path)):
         scenario = load_scenario(scenario)
     if isinstance(scenario, Network):
+        _check_models_loaded(scenario)
         return None, scenario
     return scenario, build_network(scenario)
+
+
+def _check_models_loaded(network) -> None:
+    """Refuse a network whose model codes mean other models in this process.
+
+    A model file's code is its place among the model files this process has
+    loaded; a network built elsewhere (and pickled here) may use codes that are
+    not loaded here, or mean other models. Build it from its scenario in this
+    process instead.
+    """
+    from .models import model_by_code
+
+    for g, name in enumerate(network.group_model):
+        if network.group_first[g + 1] == network.group_first[g]:
+            continue
+        code = int(network.cell_model[network.group_first[g]])
+        try:
+            ok = model_by_code(code).name == name
+        except ValueError:
+            ok = False
+        if not ok:
+            raise InputError(f"group {network.group_names[g]!r}: model {name!r} (code {code}) is not the model "
+                             "this process knows by that code; build the network from its scenario in this "
+                             "process (a model file is loaded where its scenario is read)")
 
 
 def resolve_settings(scenario, strategy=None, stepper=None, dt_ms=None, crossing=None,
