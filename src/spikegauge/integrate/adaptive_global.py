@@ -49,6 +49,62 @@ from .tableaux import BDF
 
 
 @jit
+def _window_start(P, spk_count):
+    """Reset flags per cell (a reset voltage that is not NaN) and spike counts zeroed for the window."""
+    has_reset = np.empty(spk_count.size, dtype=np.bool_)
+    for i in range(spk_count.size):
+        has_reset[i] = P[i, P_VRESET] == P[i, P_VRESET]
+        spk_count[i] = 0
+    return has_reset
+
+
+@jit
+def _next_event(t, t1, aidx, arr_ptr, arr_time, refr):
+    """End of the step from ``t``: the next arrival of any cell, a refractory end, or ``t1``."""
+    t_end = t1
+    for i in range(aidx.size):
+        if aidx[i] < arr_ptr[i + 1] and arr_time[aidx[i]] < t_end:
+            t_end = arr_time[aidx[i]]
+        if t < refr[i] and refr[i] < t_end:
+            t_end = refr[i]
+    return t_end
+
+
+@jit
+def _worst(norms):
+    """(largest error norm over the cells, the first cell that has it)."""
+    err = norms[0]
+    worst = 0
+    for i in range(1, norms.size):
+        if norms[i] > err:
+            err = norms[i]
+            worst = i
+    return err, worst
+
+
+@jit
+def _first_cut(th_first):
+    """Earliest first-crossing theta over the cells (2.0: none inside the step)."""
+    th_cut = 2.0
+    for i in range(th_first.size):
+        if th_first[i] < th_cut:
+            th_cut = th_first[i]
+    return th_cut
+
+
+@jit
+def _mark_diverged(bad, t, div_time, div_code):
+    """Mark every cell out of bounds as diverged at ``t``; whether any was."""
+    stop = False
+    for i in range(bad.size):
+        if bad[i]:
+            div_time[i] = t
+            div_code[i] = DIV_BOUNDS
+            stop = True
+    return stop
+
+
+@jit
 def _arrivals_phase(t, code, Y, P, aidx, arr_ptr, arr_time, arr_recep, arr_weight, rstate,
                     counters, have_f, refr, has_reset, spk_count, spk_time):
     """Arrivals due at ``t``; a cell whose spike state they carry past the threshold fires at ``t``."""
@@ -310,10 +366,7 @@ def global_window(method, code, Y, P, refr, div_time, div_code, g_state, lower, 
     cross = np.empty((n_cells, 4))
     h0s = np.empty(n_cells)
     bad = np.zeros(n_cells, dtype=np.bool_)
-    has_reset = np.empty(n_cells, dtype=np.bool_)
-    for i in range(n_cells):
-        has_reset[i] = P[i, P_VRESET] == P[i, P_VRESET]
-        spk_count[i] = 0
+    has_reset = _window_start(P, spk_count)
     h_prop = g_state[0]
     err_prev = g_state[1]
     after_reject = False
@@ -324,12 +377,7 @@ def global_window(method, code, Y, P, refr, div_time, div_code, g_state, lower, 
                         counters, have_f, refr, has_reset, spk_count, spk_time)
         if t >= t1:
             break
-        t_end = t1
-        for i in range(n_cells):
-            if aidx[i] < arr_ptr[i + 1] and arr_time[aidx[i]] < t_end:
-                t_end = arr_time[aidx[i]]
-            if t < refr[i] and refr[i] < t_end:
-                t_end = refr[i]
+        t_end = _next_event(t, t1, aidx, arr_ptr, arr_time, refr)
         # f at the step start where the cached one is stale
         need_h0 = h_prop <= 0.0
         _start_phase(t, need_h0, code, Y, P, refr, nst, KK, WORK, have_f, f_cl, h0s, counters,
@@ -349,12 +397,7 @@ def global_window(method, code, Y, P, refr, div_time, div_code, g_state, lower, 
             h, t_new, cut = step_to_end(t, h_prop, h_max, t_end)
             _trial_phase(t, h, method, code, Y, P, refr, nst, KK, MM, PIV, JJ, norms, counters,
                          rtol, atol, scale, pzero)
-            err = norms[0]
-            worst = 0
-            for i in range(1, n_cells):
-                if norms[i] > err:
-                    err = norms[i]
-                    worst = i
+            err, worst = _worst(norms)
             g_state[2] += 1
             if err <= 1.0:
                 break
@@ -378,10 +421,7 @@ def global_window(method, code, Y, P, refr, div_time, div_code, g_state, lower, 
         # crossings on every cell's dense output
         _cross_phase(t, h, method, code, Y, P, refr, nst, KK, has_reset, th_first, ncross, cross,
                      counters)
-        th_cut = 2.0
-        for i in range(n_cells):
-            if th_first[i] < th_cut:
-                th_cut = th_first[i]
+        th_cut = _first_cut(th_first)
         t_next = t_new if th_cut > 1.0 else spike_time(t, th_cut, h, t_new)
         # spikes up to the cut, states at the step end (or the cut), resets
         _update_phase(t, h, t_new, t_next, th_cut, method, code, Y, P, refr, nst, KK, has_reset,
@@ -389,13 +429,7 @@ def global_window(method, code, Y, P, refr, div_time, div_code, g_state, lower, 
         if tr_on:
             record_step(0, t, t_next - t, True, order, tr_time, tr_h, tr_acc, tr_ord, tr_count)
         t = t_next
-        stop = False
-        for i in range(n_cells):
-            if bad[i]:
-                div_time[i] = t
-                div_code[i] = DIV_BOUNDS
-                stop = True
-        if stop:
+        if _mark_diverged(bad, t, div_time, div_code):
             g_state[0] = h_prop
             g_state[1] = err_prev
             return
@@ -418,10 +452,7 @@ def _global_window_bdf(code, Y, P, refr, div_time, div_code, g_state, lower, upp
     ncross = np.zeros(n_cells, dtype=np.int64)
     cross = np.empty((n_cells, 4))
     bad = np.zeros(n_cells, dtype=np.bool_)
-    has_reset = np.empty(n_cells, dtype=np.bool_)
-    for i in range(n_cells):
-        has_reset[i] = P[i, P_VRESET] == P[i, P_VRESET]
-        spk_count[i] = 0
+    has_reset = _window_start(P, spk_count)
     ntol = newton_tolerance(rtol)
     h_prop = g_state[0]
     t = t0
@@ -430,13 +461,9 @@ def _global_window_bdf(code, Y, P, refr, div_time, div_code, g_state, lower, upp
                         counters, have_f, refr, has_reset, spk_count, spk_time)
         if t >= t1:
             break
-        t_end = t1
+        t_end = _next_event(t, t1, aidx, arr_ptr, arr_time, refr)
         restart = False
         for i in range(n_cells):
-            if aidx[i] < arr_ptr[i + 1] and arr_time[aidx[i]] < t_end:
-                t_end = arr_time[aidx[i]]
-            if t < refr[i] and refr[i] < t_end:
-                t_end = refr[i]
             if not have_f[i]:          # an arrival was applied to this cell
                 BF[i, B_ORDER] = 0.0
                 have_f[i] = True
@@ -455,14 +482,8 @@ def _global_window_bdf(code, Y, P, refr, div_time, div_code, g_state, lower, upp
             h, t_new, cut = step_to_end(t, h_prop, h_max, t_end)
             failed = _bdf_trial_phase(t, h, code, Y, P, refr, nst, KK, MM, PIV, BD, JJ, BF, LUC,
                                       norms, iters, counters, rtol, atol, scale, pzero, ntol)
-            err = norms[0]
-            worst = 0
-            n_iter = iters[0]
-            for i in range(1, n_cells):
-                if norms[i] > err:
-                    err = norms[i]
-                    worst = i
-                n_iter = max(n_iter, iters[i])
+            err, worst = _worst(norms)
+            n_iter = iters.max()
             g_state[2] += 1
             if not failed and err <= 1.0:
                 break
@@ -480,10 +501,7 @@ def _global_window_bdf(code, Y, P, refr, div_time, div_code, g_state, lower, upp
         step_order = np.int64(BF[0, B_ORDER])
         _bdf_cross_phase(t, code, Y, P, refr, nst, KK, BD, BF, has_reset, th_first, ncross, cross,
                          counters)
-        th_cut = 2.0
-        for i in range(n_cells):
-            if th_first[i] < th_cut:
-                th_cut = th_first[i]
+        th_cut = _first_cut(th_first)
         t_next = t_new if th_cut > 1.0 else spike_time(t, th_cut, h, t_new)
         _bdf_update_phase(t, h, t_new, t_next, th_cut, step_order, code, Y, P, refr, nst, KK, BD,
                           BF, has_reset, th_first, ncross, cross, spk_count, spk_time, bad, lower,
@@ -496,13 +514,7 @@ def _global_window_bdf(code, Y, P, refr, div_time, div_code, g_state, lower, upp
         if tr_on:
             record_step(0, t, t_next - t, True, step_order, tr_time, tr_h, tr_acc, tr_ord, tr_count)
         t = t_next
-        stop = False
-        for i in range(n_cells):
-            if bad[i]:
-                div_time[i] = t
-                div_code[i] = DIV_BOUNDS
-                stop = True
-        if stop:
+        if _mark_diverged(bad, t, div_time, div_code):
             g_state[0] = h_prop
             return
     g_state[0] = h_prop
