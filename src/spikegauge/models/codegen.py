@@ -123,11 +123,11 @@ def _hoisted(model: ModelDefinition) -> tuple[dict, list]:
     return derivatives, [(symbol.name, e) for e, symbol in table.items()]
 
 
-def _param_slot(model: ModelDefinition) -> dict:
-    """Parameter name (and hidden parameter name) -> slot in the cell's parameter vector."""
+def _param_slot(model: ModelDefinition, hidden: list) -> dict:
+    """Parameter name (and hidden parameter name, ``hidden`` from :func:`_hoisted`) -> slot."""
     names = _ordered_params(model)
     slots = {names[0]: P_IEXT}
-    for k, name in enumerate(names[1:] + [h for h, _ in _hoisted(model)[1]]):
+    for k, name in enumerate(names[1:] + [h for h, _ in hidden]):
         slots[name] = N_COMMON_PARAMS + k
     return slots
 
@@ -135,8 +135,8 @@ def _param_slot(model: ModelDefinition) -> dict:
 def generate_source(model: ModelDefinition) -> str:
     """Python source of the model's five kernels (see :mod:`spikegauge.models.generated`)."""
     states = _ordered_states(model)
-    slots = _param_slot(model)
     derivatives, hidden = _hoisted(model)
+    slots = _param_slot(model, hidden)
     sym = dict(model.symbols, **{h: sympy.Symbol(h, real=True) for h, _ in hidden})
     rename = {sym[n]: sympy.Symbol("h_" + n.split(".")[1] if n.startswith("hidden.") else _local(n), real=True)
               for n in sym}
@@ -286,7 +286,8 @@ def compile_model(model: ModelDefinition, slot: int) -> ModelSpec:
     states = _ordered_states(model)
     by_name = {s.name: s for s in model.states}
     pnames = _ordered_params(model)
-    slots = _param_slot(model)
+    hidden = _hoisted(model)[1]
+    slots = _param_slot(model, hidden)
     pinfo = {p.name: p for p in model.parameters}
     params = [ParamInfo(model.current, P_IEXT, pinfo[model.current].default,
                         "constant external current; bias and step drives add to it")]
@@ -295,7 +296,6 @@ def compile_model(model: ModelDefinition, slot: int) -> ModelSpec:
         (DERIVED_KEYS[1], P_VRESET, "0 when the model resets at a spike, NaN when it does not"),
         (DERIVED_KEYS[2], P_TREF, "refractory hold (ms, from [spike] refractory)"))]
     params += [ParamInfo(name, slots[name], pinfo[name].default, "") for name in pnames[1:]]
-    hidden = _hoisted(model)[1]
     params += [ParamInfo(h, slots[h], math.nan, "a parameter-only part of the derivatives, computed per cell")
                for h, _ in hidden]
     hidden_values = [(slots[h], _per_cell(e, pnames)) for h, e in hidden]
